@@ -1,0 +1,1 @@
+"""The statistical kernel of afterfit: numpy, scipy, pandas and patsy only (no widget imports)."""

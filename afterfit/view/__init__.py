@@ -1,0 +1,1 @@
+"""The notebook workbench: thin ipywidgets/bqplot/anywidget views over a Study."""
