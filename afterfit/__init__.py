@@ -1,12 +1,9 @@
 """afterfit: check and improve a linear regression model as a guided loop.
 
 ``Study`` is the headless object; ``explore`` shows the notebook workbench for one.
-Widget modules are imported lazily so the kernel works without a front end.
+Submodules load on first use, so the kernel works without a front end.
 """
 from __future__ import annotations
-
-from afterfit import demo
-from afterfit.model.study import Study
 
 __all__ = ["Study", "explore", "demo", "__version__"]
 __version__ = "0.1.0"
@@ -17,6 +14,19 @@ def explore(df, formula, **keywords):
 
     The Study is available as ``explorer.study``.
     """
+    from afterfit.model.study import Study
     from afterfit.view.explorer import Explorer
 
     return Explorer(Study(df, formula, **keywords))
+
+
+def __getattr__(name):
+    if name == "Study":
+        from afterfit.model.study import Study
+
+        return Study
+    if name == "demo":
+        import importlib
+
+        return importlib.import_module("afterfit.demo")
+    raise AttributeError(f"module 'afterfit' has no attribute {name!r}")
