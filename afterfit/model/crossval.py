@@ -1,0 +1,426 @@
+"""Cross-validated prediction error of a linear model, from one pass over the rows.
+
+Every fold is reduced once to the small upper-triangular factor ``R_f`` of its weighted, augmented
+rows ``sqrt(w) [X_f | y_f]`` (Householder QR, LAPACK ``geqrf``).  Because ``R_f' R_f`` equals that
+fold's Gram matrix exactly, the factor of any union of folds is the QR of the stacked factors of
+its folds: a matrix with at most ``2 (p + 1)`` rows here, since the training set of fold ``j`` is
+assembled from a running prefix (folds before ``j``) and suffix (folds after ``j``).  So ten-fold
+cross-validation costs one QR of the data plus ``O(k p^3)`` small work, not ten fits; and, unlike
+summing Gram blocks, it never squares the condition number of the design.
+
+Rank deficiency of a training set (for example a dummy column that is all zero outside the
+held-out fold) is handled as :func:`afterfit.model.ols.fit_ols` handles it: columns are scaled to
+unit norm over the training rows, a column-pivoted QR picks the estimable columns with the same
+tolerance, and the others are dropped for that fold.  A dropped column contributes nothing to the
+fold's predictions (its coefficient is taken as 0); ``per_fold`` reports the rank and the dropped
+names.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import scipy.linalg as sla
+from scipy.linalg import lapack
+
+__all__ = ["CVResult", "make_folds", "cross_validate"]
+
+SCHEMES = ("kfold", "blocked", "forward")
+
+
+@dataclass(frozen=True, eq=False)
+class CVResult:
+    """Cross-validated prediction error of one model.
+
+    Errors are root mean squared errors over rows, all with the same normalisation so that the
+    fit meter can put them side by side.  With weights ``w`` every mean is a weighted mean,
+    ``sqrt(sum(w * e**2) / sum(w))``, which does not change when all weights are multiplied by a
+    constant.
+
+    Attributes
+    ----------
+    scheme : str
+        ``"kfold"``, ``"blocked"`` or ``"forward"``.
+    k : int
+        Number of held-out folds (label ``-1``, "train only", is not counted).
+    folds : ndarray of int
+        Fold label of every row used; ``-1`` marks rows that are only ever trained on.
+    rmse_train : float
+        RMSE of the fit to all rows: ``sqrt(SSR / n)`` (no degrees-of-freedom correction, so it
+        is directly comparable with ``rmse_cv``).
+    rmse_cv : float
+        Pooled over held-out rows: ``sqrt(sum of squared held-out errors / number of held-out
+        rows)``, not the mean of per-fold RMSEs.
+    rmse_cv_se : float
+        Standard error of the per-fold RMSEs across folds, ``std(rmse_test, ddof=1) / sqrt(k)``,
+        as used by the one-standard-error rule (common practice).
+    per_fold : DataFrame
+        One row per held-out fold: ``fold``, ``n_train``, ``n_test``, ``rmse_test``,
+        ``rmse_train`` (in-sample RMSE of that fold's training fit), ``rank`` and ``aliased``
+        (tuple of column names dropped for rank deficiency in that training set).
+    predictions : ndarray
+        Held-out prediction for every row, from the fit to its fold's training set; NaN for
+        train-only rows.
+    params : ndarray, shape (k, p)
+        Coefficients of each fold's training fit; NaN at columns dropped for that fold.
+    names : tuple of str
+        Column names of ``X``.
+    """
+
+    scheme: str
+    k: int
+    folds: np.ndarray
+    rmse_train: float
+    rmse_cv: float
+    rmse_cv_se: float
+    per_fold: pd.DataFrame
+    predictions: np.ndarray
+    params: np.ndarray
+    names: tuple
+
+
+def make_folds(n, *, k=10, seed=0, order=None, scheme="kfold") -> np.ndarray:
+    """Assign ``n`` rows to cross-validation folds.
+
+    Parameters
+    ----------
+    n : int
+        Number of rows (at least 2).
+    k : int
+        Number of held-out folds, at least 2.
+    seed : int
+        Seed of the shuffle for ``"kfold"``; the other schemes are deterministic.
+    order : array-like of length n, optional
+        Sort key giving time order (times, datetimes or any sortable values; ties keep row order).
+        Used by ``"blocked"`` and ``"forward"``; ``None`` means the rows are already in time
+        order.  To pass a permutation ``perm`` listing rows in time order, pass
+        ``np.argsort(perm)``.
+    scheme : {"kfold", "blocked", "forward"}
+        ``"kfold"``: rows shuffled with ``seed`` and dealt into k folds whose sizes differ by at
+        most one.  ``"blocked"``: k contiguous blocks in time order, labelled 0..k-1 from the
+        earliest.  ``"forward"`` (forward chaining): k + 1 contiguous blocks in time order; the
+        first is labelled ``-1`` ("train only": never held out), the others 0..k-1; fold ``j`` is
+        then predicted from the train-only block and folds before ``j`` only.
+
+    Returns
+    -------
+    ndarray of int, length n
+        Fold label of each row.
+    """
+    n = _as_count(n, "n")
+    k = _as_count(k, "k")
+    scheme = _check_scheme(scheme)
+    if k < 2:
+        raise ValueError(f"k={k}: cross-validation needs at least 2 folds; use k=5 or k=10")
+    blocks = k + 1 if scheme == "forward" else k
+    if blocks > n:
+        if scheme == "forward":
+            raise ValueError(
+                f"forward chaining with k={k} needs k + 1 = {blocks} time blocks but there are only "
+                f"n={n} rows; use k <= {n - 1}"
+            )
+        raise ValueError(
+            f"k={k} folds need at least k rows but there are only n={n}; use k <= {n} "
+            "(k = n is leave-one-out)"
+        )
+    if scheme == "kfold":
+        rng = np.random.default_rng(seed)
+        return rng.permutation(np.arange(n) % k).astype(np.intp)
+    rank_to_row = np.arange(n) if order is None else _time_order(order, n)
+    # block of sorted position i: floor(i * blocks / n) gives sizes that differ by at most one
+    block = (np.arange(n) * blocks) // n
+    labels = np.empty(n, dtype=np.intp)
+    labels[rank_to_row] = block - 1 if scheme == "forward" else block
+    return labels
+
+
+def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> CVResult:
+    """Cross-validate the least-squares fit of ``y`` on ``X`` over the given folds.
+
+    Parameters
+    ----------
+    X : array-like, shape (n, p)
+        Design matrix (include the intercept column if the model has one).
+    y : array-like, shape (n,)
+        Response.
+    folds : array-like of int, shape (n,)
+        Fold labels, as from :func:`make_folds`: ``0..`` are held-out folds, ``-1`` rows are only
+        trained on.  For ``"forward"`` the numeric order of labels is time order.
+    weights : array-like, shape (n,), optional
+        Positive case weights (as in weighted least squares).  Fits minimise ``sum(w * e**2)``
+        and every RMSE is the weighted one, ``sqrt(sum(w * e**2) / sum(w))``.
+    scheme : {"kfold", "blocked", "forward"}
+        How training sets are formed: for ``"kfold"`` and ``"blocked"`` fold ``j`` is predicted
+        from every other row; for ``"forward"`` only from rows labelled ``-1`` and folds whose
+        label is below ``j``.
+    names : sequence of str, optional
+        Column names (default ``x0, x1, ...``), used in ``per_fold["aliased"]``.
+
+    Returns
+    -------
+    CVResult
+
+    Notes
+    -----
+    One pass over the rows builds each fold's R factor; training sets are combined from those
+    factors (see the module docstring), then each held-out fold is predicted from its training
+    coefficients.  A training set that cannot estimate every column (collinear or all-zero
+    columns on its rows) drops the columns a column-pivoted QR finds inestimable, as
+    :func:`~afterfit.model.ols.fit_ols` does; they predict nothing for that fold (coefficient 0,
+    which equals the minimum-norm answer for a column that is all zero on the training rows).
+    """
+    X, y, folds, sw, names = _check_inputs(X, y, folds, weights, names)
+    scheme = _check_scheme(scheme)
+    n, p = X.shape
+    if folds.min() < -1:
+        raise ValueError(
+            f"fold labels must be -1 (train only) or 0, 1, 2, ...; found {folds.min()}"
+        )
+    small = folds.max() < np.iinfo(np.int16).max
+    # small labels: counting instead of sorting, and numpy's radix sort for the stable argsort
+    labels = np.flatnonzero(np.bincount(folds + 1)) - 1 if small else np.unique(folds)
+    test_labels = labels[labels >= 0]
+    k = len(test_labels)
+    if k < 2:
+        raise ValueError(
+            f"cross-validation needs at least 2 held-out folds, found {k}; "
+            "make labels with make_folds(n, k=10)"
+        )
+    has_train_only = labels[0] == -1
+    if scheme == "forward" and not has_train_only:
+        raise ValueError(
+            "forward chaining needs rows labelled -1 (train only) before the first held-out fold, "
+            "or the first fold has nothing to learn from; make labels with "
+            "make_folds(n, k=k, order=times, scheme='forward')"
+        )
+
+    # one stable sort makes every fold a contiguous slice; the gather is the only full copy
+    perm = np.argsort(folds.astype(np.int16) if small else folds, kind="stable")
+    Xs = X.take(perm, axis=0)
+    ys = y[perm]
+    sws = None if sw is None else sw[perm]
+    bounds = np.searchsorted(folds[perm], np.concatenate([labels, [labels[-1] + 1]]))
+    slices = [slice(bounds[i], bounds[i + 1]) for i in range(len(labels))]
+    fold_r = [_fold_r(Xs[s], ys[s], None if sws is None else sws[s]) for s in slices]
+    counts = np.diff(bounds)
+    wsum = counts.astype(float) if sw is None else np.add.reduceat(sws**2, bounds[:-1])
+
+    head = 1 if has_train_only else 0
+    base = fold_r[0] if has_train_only else None
+    base_n = int(counts[0]) if has_train_only else 0
+    base_w = float(wsum[0]) if has_train_only else 0.0
+    tr, tn, tw, tslices = fold_r[head:], counts[head:], wsum[head:], slices[head:]
+    # prefix[j]: train-only rows and folds before j; suffix[j]: folds j and after
+    prefix = [base]
+    for r in tr:
+        prefix.append(_stack_r(prefix[-1], r))
+    suffix = [None] * (k + 1)
+    for j in range(k - 1, -1, -1):
+        suffix[j] = _stack_r(tr[j], suffix[j + 1])
+    w_total = float(wsum.sum())
+
+    params = np.full((k, p), np.nan)
+    pred_sorted = np.full(n, np.nan)
+    rows = []
+    sse = np.empty(k)
+    for j in range(k):
+        if scheme == "forward":
+            r_train = prefix[j]
+            n_train = base_n + int(tn[:j].sum())
+            w_train = base_w + float(tw[:j].sum())
+        else:
+            r_train = _stack_r(prefix[j], suffix[j + 1])
+            n_train = n - int(tn[j])
+            w_train = w_total - float(tw[j])
+        if n_train < p:
+            raise ValueError(
+                f"held-out fold {test_labels[j]} leaves {n_train} training rows for {p} columns; "
+                "use fewer folds, fewer terms, or (forward chaining) a larger first block"
+            )
+        sol = _solve_small(r_train, n_train)
+        params[j, sol.kept] = sol.coef
+        b = np.zeros(p)
+        b[sol.kept] = sol.coef
+        s = tslices[j]
+        pred_sorted[s] = Xs[s] @ b
+        e = ys[s] - pred_sorted[s]
+        if sws is not None:
+            e = e * sws[s]
+        sse[j] = e @ e
+        kept = set(sol.kept.tolist())
+        rows.append(
+            {
+                "fold": int(test_labels[j]),
+                "n_train": n_train,
+                "n_test": int(tn[j]),
+                "rmse_test": float(np.sqrt(sse[j] / tw[j])),
+                "rmse_train": float(np.sqrt(sol.ssr / w_train)),
+                "rank": sol.rank,
+                "aliased": tuple(names[i] for i in range(p) if i not in kept),
+            }
+        )
+    full = _solve_small(prefix[k], n)
+    per_fold = pd.DataFrame(rows)
+    predictions = np.empty(n)
+    predictions[perm] = pred_sorted
+    return CVResult(
+        scheme=scheme,
+        k=k,
+        folds=folds,
+        rmse_train=float(np.sqrt(full.ssr / w_total)),
+        rmse_cv=float(np.sqrt(sse.sum() / tw.sum())),
+        rmse_cv_se=float(per_fold["rmse_test"].std(ddof=1) / np.sqrt(k)),
+        per_fold=per_fold,
+        predictions=predictions,
+        params=params,
+        names=names,
+    )
+
+
+# --- internals -------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Small:
+    kept: np.ndarray
+    coef: np.ndarray
+    rank: int
+    ssr: float
+
+
+def _fold_r(Xf, yf, swf):
+    """R factor of one fold's weighted augmented rows ``sqrt(w) [X | y]`` (at most p+1 rows)."""
+    m, p = Xf.shape
+    # Fortran order so LAPACK factors in place without another copy
+    Z = np.empty((m, p + 1), order="F")
+    if swf is None:
+        Z[:, :p] = Xf
+        Z[:, p] = yf
+    else:
+        np.multiply(Xf, swf[:, None], out=Z[:, :p])
+        np.multiply(yf, swf, out=Z[:, p])
+    qr, _tau, _work, info = lapack.dgeqrf(Z, overwrite_a=1)
+    if info != 0:  # pragma: no cover - LAPACK argument error, not data dependent
+        raise RuntimeError(f"LAPACK dgeqrf failed with info={info}")
+    return np.triu(qr[: min(m, p + 1)])
+
+
+def _stack_r(a, b):
+    """R factor of the union of two row sets given their R factors (None = no rows)."""
+    if a is None:
+        return b
+    if b is None:
+        return a
+    S = np.vstack([a, b])
+    return np.triu(np.linalg.qr(S, mode="r"))[: min(S.shape)]
+
+
+def _solve_small(Rt, n_rows):
+    """Least squares on an augmented R factor, dropping inestimable columns like ``fit_ols``."""
+    A = Rt[:, :-1]
+    c = Rt[:, -1]
+    p = A.shape[1]
+    norms = np.sqrt((A * A).sum(axis=0))
+    norms[norms == 0] = 1.0
+    Q, R, piv = sla.qr(A / norms, mode="economic", pivoting=True)
+    d = np.abs(np.diag(R))
+    tol = d[0] * max(n_rows, p) * np.finfo(float).eps if d.size else 0.0
+    r = int((d > tol).sum())
+    if r == 0:
+        return _Small(kept=np.array([], dtype=np.intp), coef=np.array([]), rank=0, ssr=float(c @ c))
+    bp = sla.solve_triangular(R[:r, :r], Q[:, :r].T @ c) / norms[piv[:r]]
+    order = np.argsort(piv[:r])
+    kept = piv[:r][order]
+    coef = bp[order]
+    res = c - A[:, kept] @ coef
+    return _Small(kept=kept, coef=coef, rank=r, ssr=float(res @ res))
+
+
+def _as_count(value, name):
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
+        raise ValueError(f"{name} must be a whole number, got {value!r}")
+    value = int(value)
+    if name == "n" and value < 2:
+        raise ValueError(f"n={value}: cross-validation needs at least 2 rows")
+    return value
+
+
+def _check_scheme(scheme):
+    if scheme not in SCHEMES:
+        raise ValueError(f"scheme must be one of {', '.join(map(repr, SCHEMES))}, got {scheme!r}")
+    return scheme
+
+
+def _time_order(order, n):
+    """Row indices sorted by ``order`` (stable), with a clear error for bad keys."""
+    key = pd.Series(np.asarray(order) if not isinstance(order, (pd.Series, pd.Index)) else order)
+    if key.ndim != 1 or len(key) != n:
+        raise ValueError(f"order must have one value per row ({n}), got length {len(key)}")
+    missing = key.isna().to_numpy()
+    if missing.any():
+        raise ValueError(
+            f"order has {int(missing.sum())} missing values (first at row "
+            f"{int(np.flatnonzero(missing)[0])}); fill them or drop those rows first"
+        )
+    key = key.reset_index(drop=True)
+    try:
+        return key.sort_values(kind="stable").index.to_numpy()
+    except TypeError as exc:
+        raise ValueError(f"order must hold sortable values of one kind (times or numbers): {exc}") from None
+
+
+def _check_inputs(X, y, folds, weights, names):
+    try:
+        X = np.asarray(X, dtype=float)
+        y = np.asarray(y, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"X and y must be numeric: {exc}") from None
+    if X.ndim != 2:
+        raise ValueError(
+            f"X must be 2-D (rows x columns), got {X.ndim}-D; for one column use X.reshape(-1, 1)"
+        )
+    n, p = X.shape
+    if n < 2:
+        raise ValueError(f"X has {n} rows; cross-validation needs at least 2")
+    if y.ndim == 2 and y.shape[1] == 1:
+        y = y[:, 0]
+    if y.ndim != 1 or len(y) != n:
+        raise ValueError(f"y must be 1-D with one value per row of X ({n}), got shape {y.shape}")
+    if p == 0:
+        raise ValueError("X has no columns; include at least an intercept column of ones")
+    for name, arr in (("X", X), ("y", y)):
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            row = int(np.flatnonzero(bad.reshape(n, -1).any(axis=1))[0])
+            raise ValueError(
+                f"{name} has missing or infinite values (first at row {row}); "
+                "drop or fill those rows before cross-validating"
+            )
+    folds = np.asarray(folds)
+    if folds.shape != (n,):
+        raise ValueError(f"folds must have one label per row ({n}), got shape {folds.shape}")
+    if not np.issubdtype(folds.dtype, np.integer):
+        if np.issubdtype(folds.dtype, np.floating) and np.all(np.isfinite(folds)) and np.all(folds == np.round(folds)):
+            pass
+        else:
+            raise ValueError("folds must be whole-number labels (-1 for train only, 0, 1, ...)")
+    folds = folds.astype(np.intp)
+    sw = None
+    if weights is not None:
+        w = np.asarray(weights, dtype=float)
+        if w.shape != (n,):
+            raise ValueError(f"weights must have one value per row ({n}), got shape {w.shape}")
+        if not np.all(np.isfinite(w)) or np.any(w <= 0):
+            raise ValueError(
+                "weights must be finite and positive; drop rows with zero weight before "
+                "cross-validating"
+            )
+        sw = np.sqrt(w)
+    if names is None:
+        names = tuple(f"x{i}" for i in range(p))
+    else:
+        names = tuple(str(v) for v in names)
+        if len(names) != p:
+            raise ValueError(f"names has {len(names)} entries for {p} columns of X")
+    return X, y, folds, sw, names
