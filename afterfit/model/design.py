@@ -119,8 +119,9 @@ class DesignCache:
             return
         maker = lambda: iter([self.frame])  # noqa: E731
         try:
-            states = _factors_memorize(set(new), maker, _ENV)
-            num, cat = _examine_factor_types(set(new), states, maker, patsy.NAAction())
+            with np.errstate(all="ignore"):  # log(0) etc.: the rows become non-finite and are reported
+                states = _factors_memorize(set(new), maker, _ENV)
+                num, cat = _examine_factor_types(set(new), states, maker, patsy.NAAction())
         except patsy.PatsyError as exc:
             raise ValueError(_explain(exc)) from None
         except NameError as exc:
@@ -167,8 +168,9 @@ class DesignCache:
         if not di.factor_infos:  # the intercept
             return np.ones((n, len(di.column_names)))
         try:
-            (m,) = patsy.build_design_matrices([di], frame, NA_action=patsy.NAAction(),
-                                               return_type="dataframe")
+            with np.errstate(all="ignore"):
+                (m,) = patsy.build_design_matrices([di], frame, NA_action=patsy.NAAction(),
+                                                   return_type="dataframe")
         except patsy.PatsyError as exc:
             raise ValueError(_explain(exc)) from None
         vals = np.asarray(m, dtype=float)
@@ -194,6 +196,14 @@ class DesignCache:
         t = patsy.Term([f])
         subs = _make_subterm_infos([t], self._num_cols, self._cat_levels)[t]
         return self.columns(t, subs).values[:, 0]
+
+    def response_on(self, code: str, frame: pd.DataFrame) -> np.ndarray:
+        """The response evaluated on other rows (same memorised state)."""
+        f = patsy.EvalFactor(code)
+        t = patsy.Term([f])
+        self.response(code)
+        subs = _make_subterm_infos([t], self._num_cols, self._cat_levels)[t]
+        return self._evaluate(self.columns(t, subs).design_info, frame)[:, 0]
 
 
 def _explain(exc: Exception) -> str:
