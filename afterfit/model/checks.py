@@ -1,0 +1,857 @@
+"""Specification checks on a least-squares fit, each with a plain-language reading.
+
+Every check works from a :class:`~afterfit.model.ols.LeastSquares` (its ``R`` factor, residuals
+and design) and never refits the model.  Statistics follow the conventions of R, gretl and
+statsmodels so that results can be compared with theirs:
+
+======================  ===================================================================
+row                     convention
+======================  ===================================================================
+RESET                   fitted values squared and cubed, F form (gretl; statsmodels
+                        ``linear_reset(power=3, use_f=True)``)
+Breusch-Pagan (Koenker) n R^2 of squared residuals on the regressors (R ``lmtest::bptest``)
+Breusch-Pagan           original form, half the explained sum of squares of
+(original)              e^2 / mean(e^2) (``bptest(studentize=FALSE)``)
+White                   n R^2 on regressors, squares and cross products (statsmodels
+                        ``het_white``)
+Durbin-Watson           sum of squared successive differences over sum of squares
+Ljung-Box               Q at one lag, no model degrees of freedom subtracted (R ``Box.test``)
+Jarque-Bera             skewness and kurtosis from biased moments (statsmodels, R ``tseries``)
+Harvey-Collier          t test on the mean of recursive residuals (R ``lmtest::harvtest``)
+VIF: <name>             variance inflation factor from ``xtx_inv`` (statsmodels
+                        ``variance_inflation_factor``)
+======================  ===================================================================
+
+Weighted fits
+    Under weights ``w`` the model says ``sqrt(w) * e`` has constant variance, so the residual
+    based checks (Breusch-Pagan, White, Durbin-Watson, Ljung-Box, Jarque-Bera) use those
+    whitened residuals; RESET and Harvey-Collier work on the whitened design and response (a
+    weighted F test and weighted recursive residuals).  Breusch-Pagan and White regress the
+    squared whitened residuals on the *unweighted* regressors, so they ask "does spread still
+    depend on the variables after weighting?".  VIF uses the weighted cross products, i.e. it
+    describes the precision of the weighted estimates.  Rows with zero weight carry no
+    information and are left out of every check.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import scipy.linalg as sla
+from scipy import stats
+from scipy.linalg import lapack
+
+from .ols import LeastSquares
+
+__all__ = ["run_checks", "vif"]
+
+# Rows per chunk for the passes over the data: keeps the White auxiliary block (chunk x ~80
+# columns) near 10 MB whatever n is.
+_CHUNK = 16384
+# A column is treated as a duplicate of the others (or as a constant) when the part of it the
+# others do not explain is below this fraction of its size, in squared (Gram) terms: about
+# 3e-5 in norm terms.  Exactly dependent columns such as a 0/1 indicator squared sit at rounding
+# level (~1e-15), far below; genuinely distinct columns sit far above.
+_DEP_TOL = 1e-9
+# Sample-size wording (our choice, not a published rule): below these the readings say the
+# p-value is a rough guide because every test here relies on a large-sample approximation.
+_SMALL_N = 30
+_SMALL_N_JB = 100  # the chi-square behind Jarque-Bera is known to be poor well past n = 30
+# VIF above this is called high: common practice (Marquardt 1970), not a test.
+_VIF_HIGH = 10.0
+# Block length of the recursive-residual recursion (see _recursive_residuals).
+_HC_BLOCK = 96
+
+_COLUMNS = ["statistic", "df", "pvalue", "reading", "note"]
+
+
+@dataclass(frozen=True)
+class _Row:
+    """One check as it will appear in the result frame."""
+
+    name: str
+    statistic: float
+    df: str
+    pvalue: float
+    reading: str
+    note: str = ""
+
+
+@dataclass(frozen=True, eq=False)
+class _Data:
+    """What the checks share: rows with positive weight, kept columns, time order."""
+
+    X: np.ndarray            # (n, k) kept design columns, unweighted
+    y: np.ndarray            # response, unweighted
+    fitted: np.ndarray       # unweighted fitted values
+    sw: np.ndarray | None    # sqrt of weights, None when unweighted
+    e: np.ndarray            # whitened residuals, row order
+    perm: np.ndarray | None  # row indices in time order, None = row order
+    R: np.ndarray            # (k, k) with Xw'Xw = R'R
+    const_cols: np.ndarray   # positions (in kept order) of columns with one value
+    names: tuple             # names of the kept columns
+    n: int
+    k: int
+    exact: bool
+    order_note: str
+    base_note: str
+
+
+# --------------------------------------------------------------------------------------------
+# public API
+
+
+def run_checks(
+    ls: LeastSquares,
+    *,
+    has_const: bool = True,
+    order=None,
+    lags: int | None = None,
+    alpha: float = 0.05,
+    large_n: int = 50_000,
+) -> pd.DataFrame:
+    """Run the specification checks on a fit and read each result in plain words.
+
+    Parameters
+    ----------
+    ls : LeastSquares
+        The fit, from :func:`afterfit.model.ols.fit_ols`.
+    has_const : bool, default True
+        Whether the model contains an intercept, as an explicit column or implied by its
+        columns (e.g. indicators for every group).  It decides whether RESET may centre the
+        fitted values and whether VIF is centred.  ``True`` for a design whose columns cannot
+        reproduce a constant is an error.
+    order : array-like of length ``ls.nobs``, optional
+        Values to sort the rows by (e.g. the time column; numbers or datetimes), used by
+        Durbin-Watson, Ljung-Box and Harvey-Collier.  Ties keep row order.  To pass a
+        permutation ``perm`` (rows in the order ``perm[0], perm[1], ...``) pass
+        ``np.argsort(perm)``.  Without it those checks use row order and say so in ``note``.
+    lags : int, optional
+        Ljung-Box lag.  Default ``max(1, min(10, n // 5))``, the default of statsmodels
+        ``acorr_ljungbox``.  The statistic is reported at this one lag (joint over lags
+        ``1..lags``) with ``lags`` degrees of freedom, as R ``Box.test(type="Ljung-Box")``.
+    alpha : float, default 0.05
+        Level at which readings call a result a finding.
+    large_n : int, default 50_000
+        Above this many rows, readings of significant results add that a tiny departure is
+        enough for a small p-value.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per check, index ``test`` (``"RESET"``, ``"Breusch-Pagan (Koenker)"``,
+        ``"Breusch-Pagan (original)"``, ``"White"``, ``"Durbin-Watson"``, ``"Ljung-Box"``,
+        ``"Jarque-Bera"``, ``"Harvey-Collier"``, then ``"VIF: <name>"`` for each non-constant
+        regressor); columns ``statistic``, ``df`` (text: ``"2, 197"`` for F, ``"2"`` for
+        chi-square, ``"198"`` for t, empty when the check has no reference distribution),
+        ``pvalue``, ``reading`` (plain words) and ``note`` (how it was computed, where that
+        matters).  A check that is undefined for this fit (an exact fit, too few rows, no
+        non-constant regressor) has NaN statistic and p-value and a reading that says why.
+
+    Notes
+    -----
+    Cost is a few passes over the rows in chunks; nothing of size n x (number of White columns)
+    is held at once.
+
+    * White: the auxiliary regression has a constant, the non-constant regressors, and all
+      their squares and cross products.  Regressors are centred and scaled first; with the
+      constant included this spans the same space, so the statistic is unchanged but the Gram
+      matrix (accumulated in chunks) is far better conditioned.  Columns that duplicate others
+      (a 0/1 indicator squared, say) are dropped by a pivoted Cholesky factorisation, and the
+      degrees of freedom count the columns kept, as statsmodels' rank-based ``df_model``
+      does.  When the model has no intercept, statsmodels' ``het_white`` uses only products
+      of the given columns; here the auxiliary regression still has a constant and the linear
+      terms (the textbook form), so results differ for such models.  The same holds for
+      Breusch-Pagan: its auxiliary regression always has a constant (R's ``bptest`` uses the
+      model matrix as is).
+    * Durbin-Watson has no p-value here (its exact null distribution depends on the design);
+      Ljung-Box gives the test for residual autocorrelation.
+    * Harvey-Collier: recursive residuals are computed by blocks.  Given the fit to the rows
+      before a block, the block's prediction errors have covariance
+      ``sigma^2 (I + V V')`` with ``V = X_block R^{-1}``; the recursive residuals are those
+      errors whitened by the Cholesky factor of that matrix (the one-step innovations), so the
+      sequential loop runs over blocks, not rows, at O(n p^2 + n b^2) cost for blocks of b
+      rows.  The recursion starts from the first ``k`` rows in order, as R ``recresid`` does;
+      if those rows cannot determine all coefficients it starts from the shortest prefix that
+      can, and says so in ``note``.  It runs on all rows at any n.
+    * An exact fit (residual norm below ``max(1e-10, 100 eps cond)`` times the norm of the
+      centred, or without intercept uncentred, whitened response) leaves nothing to test:
+      every test row is NaN with a reading saying so.
+    """
+    if not isinstance(ls, LeastSquares):
+        raise TypeError(f"run_checks needs a LeastSquares from fit_ols, got {type(ls).__name__}")
+    alpha = float(alpha)
+    if not 0.0 < alpha < 1.0:
+        raise ValueError(f"alpha must be between 0 and 1 (e.g. 0.05), got {alpha}")
+    if isinstance(large_n, bool) or not isinstance(large_n, (int, np.integer)) or large_n < 1:
+        raise ValueError(f"large_n must be a positive whole number of rows, got {large_n!r}")
+    d = _prepare(ls, has_const=bool(has_const), order=order)
+    if lags is None:
+        lags = max(1, min(10, d.n // 5))
+    elif isinstance(lags, bool) or not isinstance(lags, (int, np.integer)) or lags < 1:
+        raise ValueError(f"lags must be a whole number >= 1, got {lags!r}")
+    elif lags >= d.n - 1:
+        raise ValueError(
+            f"lags={lags} needs more than {lags + 1} rows; this fit has {d.n}: pass a smaller lags"
+        )
+    rows = [_reset(d, has_const=bool(has_const), alpha=alpha)]
+    rows += _heteroscedasticity(d, alpha=alpha)
+    rows.append(_durbin_watson(d))
+    rows.append(_ljung_box(d, lags=int(lags), alpha=alpha))
+    rows.append(_jarque_bera(d, alpha=alpha))
+    rows.append(_harvey_collier(d, alpha=alpha))
+    v = _vif_values(d, ls, has_const=bool(has_const))
+    for name, value in v.items():
+        rows.append(_vif_row(name, value))
+    rows = [_with_size_caveat(r, d.n, alpha, large_n) for r in rows]
+    frame = pd.DataFrame(
+        {
+            "statistic": [r.statistic for r in rows],
+            "df": [r.df for r in rows],
+            "pvalue": [r.pvalue for r in rows],
+            "reading": [r.reading for r in rows],
+            "note": [_join(r.note, d.base_note) if not r.name.startswith("VIF") else r.note
+                     for r in rows],
+        },
+        index=pd.Index([r.name for r in rows], name="test"),
+    )
+    return frame[_COLUMNS]
+
+
+def vif(ls: LeastSquares, *, has_const: bool = True) -> pd.Series:
+    """Variance inflation factor of each non-constant regressor.
+
+    Computed as ``xtx_inv[j, j] * sum((x_j - mean)^2)`` (uncentred sum of squares without an
+    intercept), which equals ``1 / (1 - R_j^2)`` for the regression of ``x_j`` on the other
+    columns, with no auxiliary regressions.  Under weights the sums are weighted.  Aliased
+    columns (dropped from the fit as exact combinations of others) get ``inf``.
+
+    Parameters
+    ----------
+    ls : LeastSquares
+        The fit.
+    has_const : bool, default True
+        Whether the model contains an intercept (explicitly or implied); centred VIF if so,
+        as statsmodels ``variance_inflation_factor`` with a constant column.
+
+    Returns
+    -------
+    pandas.Series
+        Index: regressor names (constant column left out), name ``"vif"``.
+    """
+    if not isinstance(ls, LeastSquares):
+        raise TypeError(f"vif needs a LeastSquares from fit_ols, got {type(ls).__name__}")
+    d = _prepare(ls, has_const=bool(has_const), order=None)
+    return _vif_values(d, ls, has_const=bool(has_const))
+
+
+# --------------------------------------------------------------------------------------------
+# shared preparation
+
+
+def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
+    n_all = int(ls.nobs)
+    kept = np.asarray(ls.kept, dtype=int)
+    mask = None
+    notes = []
+    if ls.weights is not None:
+        w = np.asarray(ls.weights, dtype=float)
+        if not np.all(np.isfinite(w)) or np.any(w < 0):
+            raise ValueError("weights must be finite and non-negative; fix them and refit")
+        if np.any(w == 0):
+            mask = w > 0
+            notes.append(f"{int((~mask).sum())} rows with zero weight left out")
+    full_cols = kept.size == ls.X.shape[1] and np.array_equal(kept, np.arange(kept.size))
+    if mask is None:
+        X = ls.X if full_cols else ls.X[:, kept]
+        y, fitted = ls.y, ls.fitted
+        sw = None if ls.weights is None else np.sqrt(np.asarray(ls.weights, dtype=float))
+    else:
+        X = ls.X[mask][:, kept]
+        y, fitted = ls.y[mask], ls.fitted[mask]
+        sw = np.sqrt(np.asarray(ls.weights, dtype=float)[mask])
+    if sw is not None:
+        notes.append("weighted fit: whitened residuals sqrt(w)*e")
+    n, k = X.shape
+    resid = y - fitted
+    e = resid if sw is None else resid * sw
+    R = np.asarray(ls.R, dtype=float)
+
+    # Constant columns (one value in every row) are found directly; checking that the design
+    # can reproduce a constant covers intercepts implied by indicator sets too.
+    const_cols = np.flatnonzero(np.all(X == X[:1], axis=0)) if n else np.array([], int)
+    if has_const and k:
+        ones = np.ones(n) if sw is None else sw
+        s = _colsum_weighted(X, sw)  # X' W 1
+        Rt_s = sla.solve_triangular(R, s, trans="T")
+        explained = float(Rt_s @ Rt_s)
+        total = float(ones @ ones)
+        if not explained >= total * (1 - 1e-8):
+            raise ValueError(
+                "has_const=True but the model's columns cannot reproduce a constant; pass "
+                "has_const=False for a model without intercept, or add an intercept column"
+            )
+    elif has_const:
+        raise ValueError("has_const=True but the fit has no estimable columns; pass has_const=False")
+
+    # exact fit: residuals at rounding level relative to the response's own variation
+    yw = y if sw is None else y * sw
+    if has_const:
+        ones = np.ones(n) if sw is None else sw
+        ref = yw - ones * (float(ones @ yw) / float(ones @ ones))
+    else:
+        ref = yw
+    ref_norm = float(np.linalg.norm(ref))
+    e_norm = float(np.linalg.norm(e))
+    cond = float(ls.cond) if np.isfinite(ls.cond) else 1e16
+    tol = max(1e-10, 100 * np.finfo(float).eps * cond)
+    exact = (not e_norm > tol * ref_norm) or ls.df_resid <= 0
+
+    perm, order_note = _order(order, n_all, mask)
+    names = tuple(ls.names[i] for i in kept)
+    return _Data(
+        X=X, y=y, fitted=fitted, sw=sw, e=e, perm=perm, R=R, const_cols=const_cols, names=names,
+        n=n, k=k, exact=exact, order_note=order_note, base_note="; ".join(notes),
+    )
+
+
+def _order(order, n_all: int, mask) -> tuple[np.ndarray | None, str]:
+    if order is None:
+        return None, "row order (no time order given)"
+    key = np.asarray(order)
+    if key.ndim != 1 or key.shape[0] != n_all:
+        raise ValueError(
+            f"order must be one value per row of the fit ({n_all}), got shape {key.shape}"
+        )
+    if key.dtype.kind == "M" or key.dtype.kind == "m":
+        bad = np.isnat(key)
+    elif key.dtype.kind in "fc":
+        bad = np.isnan(key)
+    elif key.dtype.kind in "iub":
+        bad = np.zeros(n_all, bool)
+    else:
+        raise ValueError(
+            f"order must hold numbers or datetimes to sort by (got dtype {key.dtype}); convert "
+            "it first, e.g. pd.to_datetime(...) or pd.factorize(...)[0]"
+        )
+    if bad.any():
+        raise ValueError(f"order has {int(bad.sum())} missing values; fill or drop those rows")
+    if mask is not None:
+        key = key[mask]
+    perm = np.argsort(key, kind="stable")
+    sorted_key = key[perm]
+    ties = int(np.count_nonzero(sorted_key[1:] == sorted_key[:-1])) if key.size > 1 else 0
+    note = "time order from `order`"
+    if ties:
+        note += f" ({ties} rows tie with the previous row and keep row order)"
+    return perm, note
+
+
+def _colsum_weighted(X: np.ndarray, sw: np.ndarray | None) -> np.ndarray:
+    """X' w (with w = sw^2), i.e. the whitened design times the whitened constant."""
+    if sw is None:
+        return X.sum(axis=0)
+    out = np.zeros(X.shape[1])
+    for sl in _chunks(X.shape[0]):
+        out += (sw[sl] * sw[sl]) @ X[sl]
+    return out
+
+
+def _chunks(n: int, size: int = _CHUNK):
+    for s in range(0, n, size):
+        yield slice(s, min(n, s + size))
+
+
+def _whiten(Xc: np.ndarray, sw: np.ndarray | None, sl) -> np.ndarray:
+    return Xc if sw is None else Xc * sw[sl, None]
+
+
+def _gram_quad(G: np.ndarray, c: np.ndarray, ref: np.ndarray) -> tuple[float, int]:
+    """``c' G^- c`` over a maximal set of columns of ``G`` that are not duplicates of others.
+
+    ``G`` is a Gram matrix (possibly after removing a projection), ``c`` the matching cross
+    products with the response, ``ref`` each column's squared size before that removal.  A
+    column whose diagonal fell below ``_DEP_TOL * ref`` (nothing of it left) is dropped first;
+    the rest go through a pivoted Cholesky factorisation of the correlation form, which drops
+    columns that are combinations of the others.  Returns the quadratic form (the explained sum
+    of squares) and the number of columns used.
+    """
+    diag = np.diag(G)
+    keep = diag > _DEP_TOL * ref
+    if not keep.any():
+        return 0.0, 0
+    G = G[np.ix_(keep, keep)]
+    c = c[keep]
+    s = np.sqrt(np.diag(G))
+    C = G / np.outer(s, s)
+    cs = c / s
+    U, piv, rank, info = lapack.dpstrf(C, tol=_DEP_TOL, lower=0)
+    if info < 0:  # pragma: no cover - LAPACK argument error, cannot happen with a square input
+        raise RuntimeError(f"pivoted Cholesky failed (info={info})")
+    sel = piv[:rank] - 1
+    U11 = np.triu(U[:rank, :rank])
+    z = sla.solve_triangular(U11, cs[sel], trans="T", check_finite=False)
+    return float(z @ z), int(rank)
+
+
+# --------------------------------------------------------------------------------------------
+# readings
+
+
+def _fmt_p(p: float) -> str:
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def _fmt(x: float) -> str:
+    if not np.isfinite(x):
+        return "inf" if x > 0 else "nan"
+    return f"{x:.3g}" if abs(x) < 1e4 else f"{x:,.0f}"
+
+
+def _join(*parts: str) -> str:
+    return "; ".join(p for p in parts if p)
+
+
+def _undefined(name: str, why: str, note: str = "") -> _Row:
+    return _Row(name, math.nan, "", math.nan, f"Undefined: {why}", note)
+
+
+_EXACT = "the model fits these rows exactly (the residuals are all zero), so there is nothing left to test."
+
+
+def _with_size_caveat(r: _Row, n: int, alpha: float, large_n: int) -> _Row:
+    if not np.isfinite(r.pvalue):
+        return r
+    limit = _SMALL_N_JB if r.name == "Jarque-Bera" else _SMALL_N
+    if n < limit:
+        extra = f" Small sample (n = {n}): treat the p-value as a rough guide."
+    elif n > large_n and r.pvalue < alpha:
+        extra = (f" With {n:,} rows even a negligible departure gives a small p-value: judge its "
+                 "size in the residual panels before acting.")
+    else:
+        return r
+    return _Row(r.name, r.statistic, r.df, r.pvalue, r.reading + extra, r.note)
+
+
+# --------------------------------------------------------------------------------------------
+# RESET
+
+
+def _reset(d: _Data, *, has_const: bool, alpha: float) -> _Row:
+    name = "RESET"
+    if d.exact:
+        return _undefined(name, _EXACT)
+    f = d.fitted
+    # RESET is unchanged by rescaling the fitted values, and (with an intercept) by shifting
+    # them; standardising keeps the powers well scaled whatever the response's units.
+    if has_const:
+        centre = float(f.mean())
+        spread = float(np.sqrt(np.mean((f - centre) ** 2)))
+    else:
+        centre = 0.0
+        spread = float(np.sqrt(np.mean(f * f)))
+    if not spread > 0 or not np.isfinite(spread) or spread <= 1e-13 * max(abs(centre), 1e-300):
+        return _undefined(name, "the fitted values are constant (no non-constant regressor), "
+                                "so their powers add nothing to test.")
+    n, k = d.n, d.k
+    R = d.R
+
+    def powers(sl):
+        g = (f[sl] - centre) / spread
+        Z = np.column_stack([g * g, g * g * g])
+        return _whiten(Z, d.sw, sl)
+
+    # two passes: project the powers off the design using R, then correct once more with the
+    # residual cross products (one step of iterative refinement), so columns nearly in the
+    # design's span do not lose their remainder to cancellation
+    T = np.zeros((k, 2))
+    ref = np.zeros(2)
+    for sl in _chunks(n):
+        Z = powers(sl)
+        T += _whiten(d.X[sl], d.sw, sl).T @ Z
+        ref += np.einsum("ij,ij->j", Z, Z)
+    B = sla.cho_solve((R, False), T)
+    G1 = np.zeros((2, 2))
+    c1 = np.zeros(2)
+    T2 = np.zeros((k, 2))
+    te = np.zeros(k)
+    for sl in _chunks(n):
+        Xw = _whiten(d.X[sl], d.sw, sl)
+        Z1 = powers(sl) - Xw @ B
+        es = d.e[sl]
+        G1 += Z1.T @ Z1
+        c1 += es @ Z1
+        T2 += Xw.T @ Z1
+        te += Xw.T @ es
+    B2 = sla.cho_solve((R, False), T2)
+    G = G1 - B2.T @ T2
+    G = (G + G.T) / 2
+    c = c1 - B2.T @ te
+    delta, q = _gram_quad(G, c, ref)
+    ssr0 = float(d.e @ d.e)
+    df2 = n - k - q
+    if q == 0:
+        return _undefined(name, "the fitted values take so few distinct values that their square "
+                                "and cube are already combinations of the regressors.")
+    if df2 < 1:
+        return _undefined(name, f"{n} rows leave no residual degrees of freedom after adding "
+                                f"{q} columns to {k}.")
+    ssr1 = ssr0 - delta
+    if not ssr1 > 1e-14 * ssr0:
+        F = math.inf
+    else:
+        F = (delta / q) / (ssr1 / df2)
+    p = float(stats.f.sf(F, q, df2))
+    note = "" if q == 2 else "the cube of the fitted values adds nothing beyond the square; 1 column tested"
+    if p < alpha:
+        reading = (f"Curvature not captured: the fitted values squared and cubed still explain "
+                   f"the response (RESET {_fmt_p(p)}). Try a curved term for the variable whose "
+                   "residual panel bends, or a transformed response.")
+    else:
+        reading = (f"No sign of missed curvature: the fitted values squared and cubed add little "
+                   f"to the model (RESET {_fmt_p(p)}).")
+    return _Row(name, float(F), f"{q}, {df2}", p, reading, note)
+
+
+# --------------------------------------------------------------------------------------------
+# Breusch-Pagan and White
+
+
+def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
+    names = ("Breusch-Pagan (Koenker)", "Breusch-Pagan (original)", "White")
+    if d.exact:
+        return [_undefined(nm, _EXACT) for nm in names]
+    nc = np.setdiff1d(np.arange(d.k), d.const_cols)
+    m = nc.size
+    if m == 0:
+        why = "the model has no regressor besides the constant, so there is nothing for the spread to depend on."
+        return [_undefined(nm, why) for nm in names]
+    n = d.n
+    Xn = d.X[:, nc] if m < d.k else d.X
+    mu = Xn.mean(axis=0)
+    sd = Xn.std(axis=0)
+    sd[sd == 0] = 1.0
+    sigma2 = float(d.e @ d.e) / n  # ML variance: the original Breusch-Pagan scale
+    iu, ju = np.triu_indices(m)
+    ncol = m + iu.size + 1  # linear, products, and u = e^2 / sigma2 last
+
+    G = np.zeros((ncol, ncol))
+    sums = np.zeros(ncol)
+    shift = None
+    for sl in _chunks(n):
+        xs = (Xn[sl] - mu) / sd
+        Z = np.empty((xs.shape[0], ncol))
+        Z[:, :m] = xs
+        Z[:, m:m + iu.size] = xs[:, iu] * xs[:, ju]
+        es = d.e[sl]
+        Z[:, -1] = es * es / sigma2
+        if shift is None:
+            # shifting by the first chunk's means keeps the later centring free of cancellation
+            shift = Z.mean(axis=0)
+        Z -= shift
+        G += _syrk(Z)
+        sums += Z.sum(axis=0)
+    mean_dev = sums / n
+    Gc = G - n * np.outer(mean_dev, mean_dev)
+    raw_sq = np.diag(G) + 2 * shift * sums + n * shift**2  # uncentred sums of squares
+    Gz, cz, tss = Gc[:-1, :-1], Gc[:-1, -1], Gc[-1, -1]
+    ref = raw_sq[:-1]
+    if not tss > 1e-14 * raw_sq[-1]:
+        why = "the squared residuals are all equal, so their variation cannot be explained."
+        return [_undefined(nm, why) for nm in names]
+    lin = np.arange(m)
+    ess_bp, r_bp = _gram_quad(Gz[np.ix_(lin, lin)], cz[lin], ref[lin])
+    ess_w, r_w = _gram_quad(Gz, cz, ref)
+    rows = []
+    # Koenker (studentized): n R^2; original: ESS / 2 of e^2 / sigma2 (R bptest)
+    for nm, label, stat in ((names[0], "Breusch-Pagan, Koenker form,", n * ess_bp / tss),
+                            (names[1], "Breusch-Pagan, original form,", ess_bp / 2)):
+        if n - r_bp - 1 < 1:
+            rows.append(_undefined(nm, f"{n} rows are too few for an auxiliary regression on "
+                                       f"{r_bp} variables."))
+            continue
+        p = float(stats.chi2.sf(stat, r_bp))
+        if p < alpha:
+            reading = (f"Spread changes with the regressors: the squared residuals track the "
+                       f"model's variables ({label} {_fmt_p(p)}). Consider robust (HC) standard "
+                       "errors, weights, or a transformed response; the spread panel shows where.")
+        else:
+            reading = (f"No sign that the residual spread changes with the model's variables "
+                       f"({label} {_fmt_p(p)}).")
+        note = "" if nm == names[0] else "assumes normal errors; the Koenker form does not"
+        rows.append(_Row(nm, float(stat), str(r_bp), p, reading, note))
+    ncols_aux = ncol - 1
+    note = f"{ncols_aux} auxiliary columns from {m} regressors"
+    if r_w < ncols_aux:
+        note += f", {ncols_aux - r_w} dropped as duplicates of others"
+    if n - r_w - 1 < 1:
+        rows.append(_undefined(names[2], f"{n} rows are too few for White's auxiliary regression "
+                                         f"on {r_w} columns.", note))
+        return rows
+    stat = n * ess_w / tss
+    p = float(stats.chi2.sf(stat, r_w))
+    if p < alpha:
+        reading = (f"Spread changes with the regressors, their squares or their products "
+                   f"(White {_fmt_p(p)}). Consider robust (HC) standard errors or weights, and "
+                   "look at the spread panel for its shape.")
+    else:
+        reading = (f"No sign that the residual spread depends on the regressors, their squares "
+                   f"or products (White {_fmt_p(p)}).")
+    rows.append(_Row(names[2], float(stat), str(r_w), p, reading, note))
+    return rows
+
+
+def _syrk(Z: np.ndarray) -> np.ndarray:
+    """Z'Z for a C-ordered chunk, with half the work of a general product."""
+    from scipy.linalg import blas
+
+    # Z.T is Fortran-ordered (ncol x rows): dsyrk forms A A' = Z'Z without copying
+    U = blas.dsyrk(1.0, Z.T, trans=0, lower=0)
+    return np.triu(U) + np.triu(U, 1).T
+
+
+# --------------------------------------------------------------------------------------------
+# ordered checks
+
+
+def _ordered_resid(d: _Data) -> np.ndarray:
+    return d.e if d.perm is None else d.e[d.perm]
+
+
+_ORDER_ONLY = "It only means something when the rows have an order (time, position)"
+
+
+def _durbin_watson(d: _Data) -> _Row:
+    name = "Durbin-Watson"
+    if d.exact:
+        return _undefined(name, _EXACT, d.order_note)
+    if d.n < 2:
+        return _undefined(name, "it needs at least two rows.", d.order_note)
+    e = _ordered_resid(d)
+    diff = np.diff(e)
+    dw = float(diff @ diff) / float(e @ e)
+    r1 = 1 - dw / 2
+    where = "; these are in row order, as no time order was given." if d.perm is None else "."
+    if dw < 1.5:
+        look = (f"Durbin-Watson d = {dw:.3f} is well below 2: neighbouring residuals move together "
+                f"(lag-1 correlation about {r1:.2f}); see Ljung-Box for a test and consider a "
+                "lagged or trend term.")
+    elif dw > 2.5:
+        look = (f"Durbin-Watson d = {dw:.3f} is well above 2: neighbouring residuals alternate in "
+                f"sign (lag-1 correlation about {r1:.2f}); see Ljung-Box for a test.")
+    else:
+        look = (f"Durbin-Watson d = {dw:.3f} is near 2, the value for no lag-1 correlation "
+                f"(about {r1:.2f} here; common practice treats 1.5 to 2.5 as unremarkable).")
+    reading = f"{look} {_ORDER_ONLY}{where}"
+    return _Row(name, dw, "", math.nan, reading, _join(d.order_note, "no p-value: see Ljung-Box"))
+
+
+def _ljung_box(d: _Data, *, lags: int, alpha: float) -> _Row:
+    name = "Ljung-Box"
+    if d.exact:
+        return _undefined(name, _EXACT, d.order_note)
+    n = d.n
+    if lags >= n - 1:
+        return _undefined(name, f"{n} rows are too few for lags 1-{lags}.", d.order_note)
+    e = _ordered_resid(d)
+    x = e - e.mean()
+    c0 = float(x @ x)
+    if not c0 > 0:
+        return _undefined(name, "the residuals do not vary.", d.order_note)
+    ks = np.arange(1, lags + 1)
+    r = np.array([float(x[k:] @ x[:-k]) for k in ks]) / c0
+    q = float(n * (n + 2) * np.sum(r * r / (n - ks)))
+    p = float(stats.chi2.sf(q, lags))
+    where = "rows in row order, as no time order was given" if d.perm is None else "rows in time order"
+    if p < alpha:
+        reading = (f"Residual memory: residuals are correlated with their own past at lags 1-{lags} "
+                   f"more than chance allows (Ljung-Box {_fmt_p(p)}; {where}). For ordered data, "
+                   "try a lagged, trend or seasonal term, or errors that allow correlation. "
+                   f"{_ORDER_ONLY}.")
+    else:
+        reading = (f"No sign of residual memory at lags 1-{lags} (Ljung-Box {_fmt_p(p)}; "
+                   f"{where}). {_ORDER_ONLY}.")
+    return _Row(name, q, str(lags), p, reading, _join(d.order_note, f"lags 1-{lags}"))
+
+
+def _jarque_bera(d: _Data, *, alpha: float) -> _Row:
+    name = "Jarque-Bera"
+    if d.exact:
+        return _undefined(name, _EXACT)
+    e = d.e
+    x = e - e.mean()
+    m2 = float(np.mean(x * x))
+    if not m2 > 0:
+        return _undefined(name, "the residuals do not vary.")
+    skew = float(np.mean(x**3)) / m2**1.5
+    kurt = float(np.mean(x**4)) / m2**2
+    jb = d.n / 6.0 * (skew**2 + (kurt - 3.0) ** 2 / 4.0)
+    p = float(stats.chi2.sf(jb, 2))
+    if p < alpha:
+        reading = (f"Residuals look non-normal: skewness {skew:.2f} and kurtosis {kurt:.2f} differ "
+                   f"from a normal curve's 0 and 3 (Jarque-Bera {_fmt_p(p)}). Check the Q-Q plot "
+                   "for outliers or a skewed response; estimates stay unbiased, but small-sample "
+                   "intervals may mislead.")
+    else:
+        reading = (f"No sign of non-normal residuals: skewness {skew:.2f} and kurtosis {kurt:.2f} "
+                   f"are close to a normal curve's 0 and 3 (Jarque-Bera {_fmt_p(p)}).")
+    return _Row(name, float(jb), "2", p, reading, f"skewness {skew:.3g}, kurtosis {kurt:.3g}")
+
+
+# --------------------------------------------------------------------------------------------
+# Harvey-Collier
+
+
+def _harvey_collier(d: _Data, *, alpha: float) -> _Row:
+    name = "Harvey-Collier"
+    if d.exact:
+        return _undefined(name, _EXACT, d.order_note)
+    n, k = d.n, d.k
+    if n - k < 2:
+        return _undefined(name, f"it needs at least {k + 2} rows for {k} coefficients.", d.order_note)
+    w, start = _recursive_residuals(d)
+    note = d.order_note
+    if w is None:
+        return _undefined(name, "no stretch of rows at the start determines all coefficients.", note)
+    if start > k:
+        note = _join(note, f"recursion starts after {start} rows (the first {k} rows in order do "
+                           "not determine all coefficients)")
+    m = w.size
+    if m < 2:
+        return _undefined(name, "too few recursive residuals.", note)
+    mean = float(w.mean())
+    sd = float(np.sqrt(np.sum((w - mean) ** 2) / (m - 1)))
+    if not sd > 0:
+        return _undefined(name, "the recursive residuals do not vary.", note)
+    t = math.sqrt(m) * mean / sd
+    p = float(2 * stats.t.sf(abs(t), m - 1))
+    along = "row order" if d.perm is None else "time order"
+    if p < alpha:
+        reading = (f"The one-step-ahead prediction errors drift to one side along {along} "
+                   f"(Harvey-Collier {_fmt_p(p)}), a sign the straight-line form does not hold "
+                   "across the range; try a curved term, or sort by a suspect variable and look "
+                   "at its residual panel.")
+    else:
+        reading = (f"No drift in the one-step-ahead prediction errors along {along} "
+                   f"(Harvey-Collier {_fmt_p(p)}).")
+    return _Row(name, float(t), str(m - 1), p, reading, note)
+
+
+def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
+    """Recursive residuals of the whitened model in time order, by blocks (see run_checks)."""
+    n, k = d.n, d.k
+    perm, sw = d.perm, d.sw
+
+    def rows(a: int, b: int):
+        idx = slice(a, b) if perm is None else perm[a:b]
+        Xb = d.X[idx]
+        yb = d.y[idx]
+        if sw is not None:
+            s = sw[idx]
+            Xb = Xb * s[:, None]
+            yb = yb * s
+        return Xb, yb
+
+    start = _full_rank_start(rows, n, k)
+    if start is None:
+        return None, 0
+    X0, y0 = rows(0, start)
+    Ra = np.linalg.qr(np.column_stack([X0, y0]), mode="r")
+    Rk, z = Ra[:k, :k], Ra[:k, k]
+    out = np.empty(n - start)
+    s = start
+    while s < n:
+        e = min(n, s + _HC_BLOCK)
+        Xb, yb = rows(s, e)
+        b = sla.solve_triangular(Rk, z, check_finite=False)
+        V = sla.solve_triangular(Rk, Xb.T, trans="T", check_finite=False)  # (k, B) = R^-T Xb'
+        S = V.T @ V
+        S[np.diag_indices_from(S)] += 1.0
+        L = sla.cholesky(S, lower=True, check_finite=False)
+        out[s - start:e - start] = sla.solve_triangular(L, yb - Xb @ b, lower=True,
+                                                        check_finite=False)
+        A = np.empty((k + e - s, k + 1))
+        A[:k, :k] = Rk
+        A[:k, k] = z
+        A[k:, :k] = Xb
+        A[k:, k] = yb
+        Ra = np.linalg.qr(A, mode="r")
+        Rk, z = Ra[:k, :k], Ra[:k, k]
+        s = e
+    return out, start
+
+
+def _full_rank_start(rows, n: int, k: int) -> int | None:
+    """Shortest prefix (in time order) whose columns are linearly independent."""
+
+    def full(t: int) -> bool:
+        Xb, _ = rows(0, t)
+        norms = np.sqrt(np.einsum("ij,ij->j", Xb, Xb))
+        if np.any(norms == 0):
+            return False
+        r = sla.qr(Xb / norms, mode="r", pivoting=True)[0]
+        dg = np.abs(np.diag(r))
+        return bool(dg.size == k and dg.min() > 1e-8 * dg.max())
+
+    if full(k):
+        return k
+    lo, hi = k, k
+    while not full(hi):
+        if hi >= n:
+            return None
+        lo, hi = hi, min(n, 2 * hi)
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if full(mid):
+            hi = mid
+        else:
+            lo = mid
+    return hi
+
+
+# --------------------------------------------------------------------------------------------
+# VIF
+
+
+def _vif_values(d: _Data, ls: LeastSquares, *, has_const: bool) -> pd.Series:
+    kept = np.asarray(ls.kept, dtype=int)
+    V = ls.xtx_inv
+    const = set(d.const_cols.tolist())
+    out = {}
+    wts = None if d.sw is None else d.sw * d.sw
+    for pos, col in enumerate(kept):
+        if pos in const:
+            continue
+        x = d.X[:, pos]
+        if has_const:
+            centre = x.mean() if wts is None else float(wts @ x) / float(wts.sum())
+            dev = x - centre
+        else:
+            dev = x
+        ss = float(dev @ dev) if wts is None else float(wts @ (dev * dev))
+        out[ls.names[col]] = float(V[pos, pos]) * ss
+    for nm in ls.aliased:
+        out[nm] = math.inf
+    order = [nm for nm in ls.names if nm in out]
+    return pd.Series([out[nm] for nm in order], index=pd.Index(order, dtype=object), name="vif",
+                     dtype=float)
+
+
+def _vif_row(name, value: float) -> _Row:
+    label = f"VIF: {name}"
+    if math.isinf(value):
+        return _Row(label, value, "", math.nan,
+                    f"{name} is an exact combination of other columns, so the fit dropped it "
+                    "(aliased); remove it or the columns it repeats.",
+                    "aliased")
+    if value > _VIF_HIGH:
+        reading = (f"High collinearity: VIF {_fmt(value)} for {name} (above 10, common practice) "
+                   "means its coefficient is poorly determined because the other regressors "
+                   "nearly reproduce it. Consider dropping or combining related variables, or "
+                   "centring it if it enters a polynomial or interaction.")
+    else:
+        reading = (f"VIF {_fmt(value)} for {name}: not strongly collinear with the other regressors "
+                   "(common practice flags values above 10).")
+    return _Row(label, value, "", math.nan, reading, "rule of thumb, not a test")
