@@ -167,10 +167,10 @@ class _Model:
         bse = pd.Series(ls.bse(st.cov_type)[ls.kept], index=idx, name="bse")
         with np.errstate(divide="ignore", invalid="ignore"):
             tv = params / bse
-        if st.cov_type == "nonrobust" and ls.df_resid > 0:
-            pv = 2 * stats.t.sf(np.abs(tv), ls.df_resid)
-        else:  # statsmodels uses the t distribution for HC covariances of OLS as well
-            pv = 2 * stats.t.sf(np.abs(tv), max(ls.df_resid, 1))
+        if st.cov_type == "nonrobust":
+            pv = 2 * stats.t.sf(np.abs(tv), ls.df_resid) if ls.df_resid > 0 else np.full(len(tv), np.nan)
+        else:  # as statsmodels: robust covariances use the normal reference distribution
+            pv = 2 * stats.norm.sf(np.abs(tv))
         n = ls.nobs
         k_const = 1 if self.state.intercept else 0
         df_model = ls.rank - k_const
@@ -369,17 +369,12 @@ class Study:
             if self._holdout_mask.all():
                 raise ValueError("the holdout would take every row; use a smaller fraction")
         self._holdout_record = None
-        # folds over all rows once, so a row keeps its fold across steps
-        from afterfit.model.crossval import make_folds
-
         scheme = cv_scheme or ("blocked" if self._time is not None else "kfold")
         if scheme not in ("kfold", "blocked", "forward"):
             raise ValueError(f"cv_scheme must be 'kfold', 'blocked' or 'forward', got {scheme!r}")
         if scheme != "kfold" and self._time is None:
             raise ValueError(f"cv_scheme={scheme!r} needs time= to order the rows")
         self.cv_scheme = scheme
-        order = None if self._time is None else np.where(np.isnan(self._time), np.inf, self._time)
-        self._folds = make_folds(n, k=self.k_folds, seed=self.seed, order=order, scheme=scheme)
 
         self._caches: OrderedDict = OrderedDict()
         self._models: OrderedDict = OrderedDict()
@@ -393,6 +388,15 @@ class Study:
         self._push(Step(index=0, kind="start", detail=f"start: {self._formula_for(state)}",
                         reason="", time=_now(), formula=self._formula_for(state),
                         n_rows=len(model.rows), state=state))
+
+    @cached_property
+    def _folds(self) -> np.ndarray:
+        """Fold labels over all rows, made once so a row keeps its fold across steps."""
+        from afterfit.model.crossval import make_folds
+
+        order = None if self._time is None else np.where(np.isnan(self._time), np.inf, self._time)
+        return make_folds(len(self.data), k=self.k_folds, seed=self.seed, order=order,
+                          scheme=self.cv_scheme)
 
     # -- bookkeeping ----------------------------------------------------------------------------
     def _holdout_positions(self) -> np.ndarray:
