@@ -79,7 +79,7 @@ def to_code(study) -> str:
     today = _dt.date.today().isoformat()
     lines.append(f"# Model exported by afterfit on {today}; needs pandas and statsmodels, "
                  "with the data in `df`.")
-    uses_np = bool(study.derived) or "np." in study.formula or bool(model_nonfinite(model))
+    uses_np = bool(study.derived) or "np." in study.formula or len(model_nonfinite(model)) > 0
     if uses_np:
         lines.append("import numpy as np")
     lines += ["import pandas as pd", "import statsmodels.formula.api as smf", ""]
@@ -89,7 +89,7 @@ def to_code(study) -> str:
         lines += [
             f"# decimal years from the datetime column {_comment(study.declarations.time)}",
             f"_t = pd.to_datetime(df[{src}])",
-            "data = data.assign(**{" + string_literal(name) + ": (_t.dt.year + (_t.dt.dayofyear - 1 "
+            "data = data.assign(**{" + string_literal(name) + ": (_t.dt.year + (_t.dt.day_of_year - 1 "
             "+ (_t.dt.hour * 3600 + _t.dt.minute * 60 + _t.dt.second) / 86400.0) "
             "/ np.where(_t.dt.is_leap_year, 366.0, 365.0)).astype(float)})",
         ]

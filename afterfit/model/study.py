@@ -1006,4 +1006,4 @@ def decimal_years(s: pd.Series) -> np.ndarray:
         s = s.dt.tz_convert("UTC").dt.tz_localize(None)
     frac_day = (s.dt.hour * 3600 + s.dt.minute * 60 + s.dt.second) / 86400.0
     days = np.where(s.dt.is_leap_year, 366.0, 365.0)
-    return (s.dt.year + (s.dt.dayofyear - 1 + frac_day) / days).to_numpy(dtype=float)
+    return (s.dt.year + (s.dt.day_of_year - 1 + frac_day) / days).to_numpy(dtype=float)
