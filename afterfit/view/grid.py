@@ -1,0 +1,945 @@
+"""Residual grid: one bqplot figure per question about what the model left over.
+
+Each panel is an SVG ``Scatter`` of at most ``budget`` dots (rows with extreme residuals or high
+influence are always among them) over a ``HeatMap`` density image of every fitted row, a smoother
+(binned residual means with a band, from the Study) and reference lines.  Panels are ranked by the
+Study's pattern score, worst first; the analyst can pin a panel to the top or hide it.
+
+A brush in any panel selects *every* fitted row inside the brushed data range (not only the drawn
+dots); the same rows light up in every panel and the ``on_select`` callbacks receive their labels.
+
+The grid draws what the Study computed; the only arithmetic here is for drawing (ranges, counts per
+density cell, plotting positions of the Q-Q panel, the Cook's distance contour curves).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import bqplot as bq
+import ipywidgets as W
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from afterfit.view.sampling import DrawnPoints, choose_points, density
+
+__all__ = ["ResidualGrid", "PanelData", "PanelView", "Score", "PALETTE", "panel_keys"]
+
+# Our own palette: warm paper background, deep teal dots, ember for the selection, plum smoother.
+PALETTE = {
+    "paper": "#fbfaf6",
+    "panel_border": "#e4dfd3",
+    "grid": "#ebe7dd",
+    "axis": "#5c5850",
+    "text": "#3b3833",
+    "muted": "#8a857a",
+    "dot": "#1f6f78",
+    "selected": "#e4572e",
+    "smoother": "#7b3f8c",
+    "guide": "#a39e93",
+    "cook": "#b8433a",
+    "bar": "#3f8f8a",
+    "density": ("rgba(31,111,120,0)", "rgba(31,111,120,0.55)"),
+}
+
+_TICK_STYLE = {"font-size": "10px", "fill": PALETTE["axis"]}
+_TITLE_STYLE = {"font-size": "13px", "fill": PALETTE["text"], "font-weight": "600"}
+_MAX_LEVELS = 60  # a categorical variable with more levels is an identifier, not a group
+_MAX_LEVEL_TICKS = 30
+_HIGHLIGHT_CAP = 250  # selected rows outside the drawn sample that are drawn on top
+_COOK_LEVELS = (0.5, 1.0)  # contour levels of Cook's distance (common practice)
+_GUIDE_POINTS = 64
+_GOLDEN = (math.sqrt(5) - 1) / 2
+
+
+# ---------------------------------------------------------------------------------------------
+# what a panel shows (data only)
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class PanelData:
+    """The arrays and labels of one panel.
+
+    Attributes
+    ----------
+    key : stable identifier ("fitted", "var:<name>", "group:<name>", "qq", "spread", "influence",
+        "memory", "partial:<term>").
+    title : the panel's question, e.g. "Residual by fitted value".
+    kind : "scatter", "strip" (a categorical x axis) or "bars" (one bar per lag, no rows).
+    x, y : float arrays, one value per fitted row (per lag for "bars"), NaN where undefined.
+    x_label, y_label : axis labels.
+    score : what ranks the panel and is shown in its subtitle (None when the Study has none).
+    levels : level names of a strip panel (``x`` holds level code plus a small jitter).
+    smoother : DataFrame with ``centre``, ``mean``, ``lower``, ``upper`` in panel units, or None.
+    guides : reference lines as ``(x, y)`` pairs of equal-length arrays.
+    """
+
+    key: str
+    title: str
+    kind: str
+    x: np.ndarray
+    y: np.ndarray
+    x_label: str
+    y_label: str
+    score: "Score | None" = None
+    levels: tuple = ()
+    smoother: pd.DataFrame | None = None
+    guides: tuple = ()
+
+    @property
+    def brushable(self) -> bool:
+        """Whether a brush in this panel selects rows (every kind except bars)."""
+        return self.kind != "bars"
+
+    @property
+    def subtitle(self) -> str:
+        """The panel's score as shown beside its title."""
+        return self.score.text if self.score is not None else "no score for this panel"
+
+
+@dataclass(frozen=True)
+class Score:
+    """How much structure a panel shows, as the Study measured it.
+
+    Attributes
+    ----------
+    value : the statistic shown (eta squared of the binned means for residual panels, the test
+        statistic for panels read from ``study.checks()``, the largest Cook's distance for the
+        influence map); NaN when there is none.
+    pvalue : its p-value (NaN when it has none).
+    label : what ``value`` is, in words.
+    note : extra words for the subtitle.
+    strong : True when a rule of thumb says "look here first" without a p-value (a row with
+        Cook's distance of 1 or more, common practice).
+    """
+
+    value: float
+    pvalue: float
+    label: str
+    note: str = ""
+    strong: bool = False
+
+    @property
+    def rank(self) -> tuple:
+        """Sort key, worst first: strong signals, then by p-value (ties by value), then the rest."""
+        if self.strong:
+            return (0, 0.0, 0.0)
+        if np.isfinite(self.pvalue):
+            return (1, self.pvalue, -self.value if np.isfinite(self.value) else 0.0)
+        return (2, 0.0, 0.0)
+
+    @property
+    def text(self) -> str:
+        parts = []
+        if np.isfinite(self.value):
+            parts.append(f"{self.label} {self.value:.3g}")
+        if np.isfinite(self.pvalue):
+            parts.append("p < 0.001" if self.pvalue < 0.001 else f"p = {self.pvalue:.3f}")
+        if self.note:
+            parts.append(self.note)
+        return " · ".join(parts) if parts else f"no {self.label}"
+
+
+def _range(*arrays: np.ndarray, pad: float = 0.05) -> tuple[float, float]:
+    """Finite min/max over the arrays, widened by ``pad`` of the span (a unit span if flat)."""
+    lo, hi = math.inf, -math.inf
+    for a in arrays:
+        a = np.asarray(a, dtype=float)
+        if a.size:
+            ok = a[np.isfinite(a)]
+            if ok.size:
+                lo = min(lo, float(ok.min()))
+                hi = max(hi, float(ok.max()))
+    if not math.isfinite(lo):
+        return (-1.0, 1.0)
+    span = hi - lo
+    if span <= 0 or not math.isfinite(span):
+        half = max(abs(lo) * 0.05, 0.5)
+        return (lo - half, hi + half)
+    return (lo - pad * span, hi + pad * span)
+
+
+def _float(a: Any) -> np.ndarray:
+    return np.asarray(pd.to_numeric(pd.Series(np.asarray(a)), errors="coerce"), dtype=float)
+
+
+def _is_numeric(s: pd.Series) -> bool:
+    return pd.api.types.is_numeric_dtype(s.dtype) and not pd.api.types.is_bool_dtype(s.dtype)
+
+
+def _level_name(v: Any) -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NA or v is pd.NaT:
+        return "(missing)"
+    return str(v)
+
+
+def panel_keys(study: Any) -> list[tuple[str, str]]:
+    """Every panel the Study supports, as ``(key, title)`` in a fixed order."""
+    out = [("fitted", "Residual by fitted value")]
+    for name, s in study.panel_variables().items():
+        if _is_numeric(s):
+            if np.isfinite(_float(s)).any():
+                out.append((f"var:{name}", f"Residual by {name}"))
+        elif s.nunique(dropna=False) <= _MAX_LEVELS:
+            out.append((f"group:{name}", f"Residual by {name}"))
+    out += [("qq", "Quantile check (studentized)"), ("spread", "Spread by fitted value"),
+            ("influence", "Influence map (leverage × studentized, Cook contours)")]
+    if study.time_values is not None:
+        out.append(("memory", "Residual memory (autocorrelation by lag)"))
+    for term in _numeric_terms(study):
+        out.append((f"partial:{term}", f"Partial residual: {term}"))
+    return out
+
+
+def _numeric_terms(study: Any) -> list[str]:
+    """Model terms that are one numeric column (the ones with a partial residual plot)."""
+    names = set(study.fit.params.index)
+    return [t for t in study.terms if t in names]
+
+
+# ---------------------------------------------------------------------------------------------
+# reading one Study state
+# ---------------------------------------------------------------------------------------------
+class _Snapshot:
+    """Arrays of one Study state, read once per refresh and shared by the panels."""
+
+    def __init__(self, study: Any, *, budget: int, seed: int):
+        self.study = study
+        self.rows: pd.Index = study.rows
+        fit = study.fit
+        self.resid = self._on_rows(fit.resid)
+        self.fitted = self._on_rows(fit.fitted)
+        infl = study.influence
+        if not infl.index.equals(self.rows):
+            infl = infl.reindex(self.rows)
+        self.influence = infl
+        self.drawn: DrawnPoints = choose_points(infl, budget=budget, seed=seed)
+        self._variables: dict | None = None
+        self._scores: pd.DataFrame | None = None
+        self._checks: pd.DataFrame | None = None
+
+    def _on_rows(self, s: pd.Series) -> np.ndarray:
+        if not s.index.equals(self.rows):
+            s = s.reindex(self.rows)
+        return s.to_numpy(dtype=float)
+
+    @property
+    def variables(self) -> dict:
+        if self._variables is None:
+            self._variables = self.study.panel_variables()
+        return self._variables
+
+    @property
+    def scores(self) -> pd.DataFrame:
+        if self._scores is None:
+            try:
+                table = self.study.pattern_scores()
+            except Exception as exc:  # a missing score must not take the grid down
+                table = pd.DataFrame(columns=["score", "pvalue", "kind"])
+                table.attrs["error"] = str(exc)
+            self._scores = table[~table.index.duplicated()]
+        return self._scores
+
+    @property
+    def checks(self) -> pd.DataFrame:
+        if self._checks is None:
+            try:
+                self._checks = self.study.checks()
+            except Exception:
+                self._checks = pd.DataFrame(columns=["statistic", "pvalue"])
+        return self._checks
+
+    def score_of(self, name: str) -> Score:
+        """The pattern score of the residuals against variable ``name`` (or "fitted")."""
+        t = self.scores
+        if name in t.index:
+            row = t.loc[name]
+            return Score(float(row.get("score", np.nan)), float(row.get("pvalue", np.nan)),
+                         "pattern score (η²)")
+        return Score(np.nan, np.nan, "pattern score")
+
+    def check_score(self, name: str) -> Score:
+        """A panel's score read from the specification check called ``name``."""
+        t = self.checks
+        if t is None or name not in t.index:
+            return Score(np.nan, np.nan, name)
+        row = t.loc[name]
+        value = pd.to_numeric(pd.Series([row.get("statistic")]), errors="coerce").iloc[0]
+        p = pd.to_numeric(pd.Series([row.get("pvalue")]), errors="coerce").iloc[0]
+        return Score(float(value), float(p), name)
+
+    def influence_score(self) -> Score:
+        cooks = self.influence["cooks_d"].to_numpy(dtype=float)
+        flags = [c for c in self.influence.columns if str(c).startswith("flag_")]
+        n_flag = int(self.influence[flags].to_numpy(dtype=bool).any(axis=1).sum()) if flags else 0
+        top = float(np.nanmax(cooks)) if np.isfinite(cooks).any() else float("nan")
+        # Cook's distance of 1 or more: look at the row first (common practice)
+        return Score(top, np.nan, "largest Cook's D", note=f"{n_flag:,} flagged row(s)",
+                     strong=bool(top >= 1.0))
+
+
+def _smoother(study: Any, name: str, levels: tuple = ()) -> pd.DataFrame | None:
+    try:
+        sm = study.binned_means(name)
+    except Exception:
+        return None
+    if sm is None or len(sm) == 0 or not {"centre", "mean"} <= set(sm.columns):
+        return None
+    sm = sm.copy()
+    if levels:
+        lookup = {lvl: i for i, lvl in enumerate(levels)}
+        sm["centre"] = [lookup.get(_level_name(c), np.nan) for c in sm["centre"]]
+    for c in ("centre", "mean", "lower", "upper"):
+        if c not in sm:
+            sm[c] = sm["mean"]
+        sm[c] = pd.to_numeric(sm[c], errors="coerce")
+    sm = sm[np.isfinite(sm["centre"]) & np.isfinite(sm["mean"])]
+    return sm.sort_values("centre") if len(sm) else None
+
+
+def _zero_guide(x_range: tuple[float, float]) -> tuple[np.ndarray, np.ndarray]:
+    x = np.linspace(x_range[0], x_range[1], 2)
+    return x, np.zeros(2)
+
+
+def build_panel(snap: _Snapshot, key: str, title: str) -> PanelData:
+    """The data of panel ``key`` for one Study state."""
+    study = snap.study
+    resid = snap.resid
+    score = _score_for(snap, key)
+    if key == "fitted":
+        x = snap.fitted
+        return PanelData(key, title, "scatter", x, resid, "fitted value", "residual", score,
+                         smoother=_smoother(study, "fitted"), guides=(_zero_guide(_range(x)),))
+    if key.startswith("var:"):
+        name = key[4:]
+        x = _float(snap.variables[name])
+        return PanelData(key, title, "scatter", x, resid, str(name), "residual", score,
+                         smoother=_smoother(study, name), guides=(_zero_guide(_range(x)),))
+    if key.startswith("group:"):
+        name = key[6:]
+        s = snap.variables[name]
+        codes, uniques = pd.factorize(s, sort=True, use_na_sentinel=False)
+        levels = tuple(_level_name(u) for u in uniques)
+        # a fixed, even spread inside each level (no random numbers: it never moves)
+        jitter = ((np.arange(len(codes)) * _GOLDEN) % 1.0 - 0.5) * 0.56
+        x = codes.astype(float) + jitter
+        return PanelData(key, title, "strip", x, resid, str(name), "residual", score,
+                         levels=levels, smoother=_smoother(study, name, levels),
+                         guides=((np.array([-0.5, len(levels) - 0.5]), np.zeros(2)),))
+    infl = snap.influence
+    if key == "qq":
+        y = infl["student_ext"].to_numpy(dtype=float)
+        x = np.full(len(y), np.nan)
+        ok = np.isfinite(y)
+        m = int(ok.sum())
+        if m:
+            # Blom plotting positions (common practice for normal Q-Q plots)
+            ranks = np.empty(m)
+            ranks[np.argsort(y[ok], kind="stable")] = np.arange(1, m + 1)
+            x[ok] = stats.norm.ppf((ranks - 0.375) / (m + 0.25))
+        lo, hi = _range(x, y)
+        line = np.linspace(lo, hi, 2)
+        return PanelData(key, title, "scatter", x, y, "normal quantile",
+                         "studentized residual (external)", score, guides=((line, line),))
+    if key == "spread":
+        y = np.sqrt(np.abs(infl["student_int"].to_numpy(dtype=float)))
+        return PanelData(key, title, "scatter", snap.fitted, y, "fitted value",
+                         "√|studentized residual|", score)
+    if key == "influence":
+        h = infl["leverage"].to_numpy(dtype=float)
+        r = infl["student_int"].to_numpy(dtype=float)
+        return PanelData(key, title, "scatter", h, r, "leverage", "studentized residual", score,
+                         guides=_cook_guides(h, r, study.fit.rank))
+    if key == "memory":
+        acf = study.acf()
+        lags = acf["lag"].to_numpy(dtype=float)
+        band = float(acf["band"].iloc[0]) if "band" in acf and len(acf) else float("nan")
+        xs = np.array([0.5, lags.max() + 0.5 if len(lags) else 1.5])
+        guides = ((xs, np.zeros(2)),)
+        if np.isfinite(band):
+            guides += ((xs, np.full(2, band)), (xs, np.full(2, -band)))
+        return PanelData(key, title, "bars", lags, acf["acf"].to_numpy(dtype=float), "lag",
+                         "autocorrelation", score, guides=guides)
+    if key.startswith("partial:"):
+        term = key[8:]
+        pr = study.partial_residuals(term)
+        if not pr.index.equals(snap.rows):
+            pr = pr.reindex(snap.rows)
+        x = pr["x"].to_numpy(dtype=float)
+        y = pr["partial"].to_numpy(dtype=float)
+        b = float(study.fit.params.get(term, np.nan))
+        xr = np.linspace(*_range(x, pad=0.0), 2)
+        guides = ((xr, b * xr),) if np.isfinite(b) else ()
+        smoother = None
+        if term in snap.variables and np.isfinite(b):
+            sm = _smoother(study, term)
+            if sm is not None:
+                # residual means plus the term's own line: the smoother in partial units
+                shift = b * sm["centre"]
+                smoother = sm.assign(mean=sm["mean"] + shift, lower=sm["lower"] + shift,
+                                     upper=sm["upper"] + shift)
+        return PanelData(key, title, "scatter", x, y, term, "component + residual", score,
+                         smoother=smoother, guides=guides)
+    raise KeyError(f"no panel called {key!r}")
+
+
+def _cook_guides(h: np.ndarray, r: np.ndarray, p: int) -> tuple:
+    """Curves where Cook's distance equals each level: r = ±sqrt(D p (1 - h) / h)."""
+    hmax = float(np.nanmax(h)) if np.isfinite(h).any() else 0.5
+    hmax = min(max(hmax * 1.05, 0.05), 0.999)
+    ylim = max(float(np.nanmax(np.abs(r))) if np.isfinite(r).any() else 3.0, 3.0)
+    out = []
+    for d in _COOK_LEVELS:
+        # start where the curve enters the panel's vertical range
+        h0 = d * p / (ylim**2 + d * p)
+        if h0 >= hmax:
+            continue
+        hh = np.linspace(h0, hmax, _GUIDE_POINTS)
+        rr = np.sqrt(d * p * (1 - hh) / hh)
+        out += [(hh, rr), (hh, -rr)]
+    return tuple(out)
+
+
+# ---------------------------------------------------------------------------------------------
+# one panel's widgets
+# ---------------------------------------------------------------------------------------------
+class PanelView:
+    """The bqplot figure of one panel, its header (subtitle, pin, hide) and its brush.
+
+    Widgets are created once per panel key and reused for every refresh, so a refit only sends
+    new arrays (as binary buffers) and fixed scale bounds.
+    """
+
+    def __init__(self, key: str, kind: str, *, on_brush: Callable, on_pin: Callable,
+                 on_hide: Callable):
+        self.key = key
+        self.kind = kind
+        self.data: PanelData | None = None
+        self.drawn = np.empty(0, dtype=np.int64)
+        self.extra = np.empty(0, dtype=np.int64)
+        self.xs = bq.LinearScale(min=0.0, max=1.0, allow_padding=False)
+        self.ys = bq.LinearScale(min=0.0, max=1.0, allow_padding=False)
+        sc = {"x": self.xs, "y": self.ys}
+        self.x_axis = bq.Axis(scale=self.xs, label="", grid_color=PALETTE["grid"],
+                              color=PALETTE["axis"], label_color=PALETTE["axis"],
+                              tick_style=_TICK_STYLE, label_offset="32px")
+        self.y_axis = bq.Axis(scale=self.ys, orientation="vertical", side="left", label="",
+                              grid_color=PALETTE["grid"], color=PALETTE["axis"],
+                              label_color=PALETTE["axis"], tick_style=_TICK_STYLE,
+                              label_offset="-40px")
+        self.shade_scale = bq.ColorScale(min=0.0, max=1.0, colors=list(PALETTE["density"]))
+        self.density = bq.HeatMap(color=np.zeros((2, 2), dtype=np.float32),
+                                  x=np.array([0.0, 1.0]), y=np.array([0.0, 1.0]),
+                                  scales={**sc, "color": self.shade_scale}, visible=False,
+                                  null_color=PALETTE["paper"])
+        self.band = bq.Lines(x=np.zeros((2, 2)), y=np.zeros((2, 2)), scales=sc, fill="between",
+                             colors=[PALETTE["smoother"]], fill_colors=[PALETTE["smoother"]],
+                             fill_opacities=[0.14], stroke_width=0, visible=False)
+        if kind == "strip":
+            # per level: a vertical band segment (drawn thick, translucent)
+            self.band.fill = "none"
+            self.band.stroke_width = 7
+            self.band.opacities = [0.22]
+        self.guides = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)), scales=sc,
+                               colors=[PALETTE["guide"]], stroke_width=1.2, line_style="dashed",
+                               visible=False)
+        self.smooth = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)), scales=sc,
+                               colors=[PALETTE["smoother"]], stroke_width=2.2, visible=False)
+        marks: list = [self.density, self.band, self.guides, self.smooth]
+        if kind == "bars":
+            self.dots = bq.Bars(x=np.zeros(1), y=np.zeros(1), scales=sc,
+                                colors=[PALETTE["bar"]], padding=0.35, stroke_width=0)
+            self.highlight = None
+            marks.append(self.dots)
+        else:
+            self.dots = bq.Scatter(
+                x=np.zeros(0), y=np.zeros(0), scales=sc, colors=[PALETTE["dot"]],
+                opacities=[0.7], default_size=16, stroke_width=0,
+                selected_style={"fill": PALETTE["selected"], "opacity": 1.0},
+                unselected_style={"opacity": 0.25},
+            )
+            self.highlight = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc,
+                                        colors=[PALETTE["selected"]], opacities=[0.85],
+                                        default_size=16, stroke_width=0)
+            marks += [self.dots, self.highlight]
+        self.brush = None
+        if kind != "bars":
+            self.brush = bq.interacts.BrushSelector(x_scale=self.xs, y_scale=self.ys,
+                                                    marks=[self.dots], color=PALETTE["selected"])
+            self.brush.observe(lambda ch: on_brush(self, ch), names=["brushing"])
+        self.figure = bq.Figure(
+            marks=marks, axes=[self.x_axis, self.y_axis], title="", title_style=_TITLE_STYLE,
+            background_style={"fill": PALETTE["paper"]}, interaction=self.brush,
+            fig_margin={"top": 30, "bottom": 44, "left": 56, "right": 14},
+            padding_x=0.0, padding_y=0.0, animation_duration=0,
+            layout=W.Layout(width="100%", height="280px"),
+        )
+        self.subtitle = W.Label("", style={"font_size": "11px", "text_color": PALETTE["muted"]},
+                                layout=W.Layout(flex="1 1 auto", overflow="hidden"))
+        self.pin = W.ToggleButton(False, icon="thumb-tack", tooltip="Keep this panel at the top",
+                                  layout=W.Layout(width="30px", height="24px", padding="0"))
+        self.hide = W.Button(icon="eye-slash", tooltip="Hide this panel (restore it below the grid)",
+                             layout=W.Layout(width="30px", height="24px", padding="0"))
+        self.pin.observe(lambda ch: on_pin(self.key, bool(ch["new"])), names=["value"])
+        self.hide.on_click(lambda _b: on_hide(self.key))
+        header = W.HBox([self.subtitle, self.pin, self.hide],
+                        layout=W.Layout(align_items="center", padding="2px 6px 0 8px"))
+        self.box = W.VBox([header, self.figure], layout=W.Layout(
+            border=f"1px solid {PALETTE['panel_border']}", margin="0", padding="0",
+            min_width="300px"))
+
+    # -- data ---------------------------------------------------------------------------------
+    def show(self, data: PanelData, drawn: DrawnPoints) -> None:
+        """Send ``data`` to the page; ``drawn`` chooses which rows become dots."""
+        self.data = data
+        x, y = data.x, data.y
+        guide_x = [g[0] for g in data.guides]
+        guide_y = [g[1] for g in data.guides]
+        if data.kind == "strip":
+            x_range = (-0.5, len(data.levels) - 0.5)
+        elif data.kind == "bars":
+            x_range = (0.0, float(np.nanmax(x)) + 1.0 if len(x) else 2.0)
+        else:
+            x_range = _range(x)
+        band_y = []
+        if data.smoother is not None:
+            band_y = [data.smoother["lower"].to_numpy(), data.smoother["upper"].to_numpy()]
+        y_range = _range(y, *band_y, *(np.zeros(1),) if data.kind == "bars" else ())
+        if data.kind == "scatter" and data.key == "qq":
+            x_range = y_range = _range(x, y)
+        widgets = [self.density, self.band, self.guides, self.smooth, self.dots]
+        if self.highlight is not None:
+            widgets.append(self.highlight)
+        widgets += [self.x_axis, self.y_axis, self.figure, self.xs, self.ys, self.shade_scale]
+        with _held(widgets):
+            # scales first in the batch order (held widgets flush last-in first)
+            self.xs.min, self.xs.max = float(x_range[0]), float(x_range[1])
+            self.ys.min, self.ys.max = float(y_range[0]), float(y_range[1])
+            self.figure.title = data.title
+            self.x_axis.label = data.x_label
+            self.y_axis.label = data.y_label
+            if data.kind == "strip":
+                k = len(data.levels)
+                step = max(1, math.ceil(k / _MAX_LEVEL_TICKS))
+                ticks = np.arange(0, k, step, dtype=float)
+                self.x_axis.tick_values = ticks
+                self.x_axis.tick_labels = {str(int(t)): _short(data.levels[int(t)]) for t in ticks}
+            elif data.kind == "bars":
+                self.x_axis.tick_format = "d"
+            self._show_guides(guide_x, guide_y)
+            self._show_smoother(data)
+            if data.kind == "bars":
+                self.dots.x = x
+                self.dots.y = np.nan_to_num(y)
+            else:
+                pos = drawn.positions
+                self.drawn = pos
+                ok = np.isfinite(x[pos]) & np.isfinite(y[pos])
+                self.drawn = pos[ok]
+                with self.dots.hold_sync():
+                    self.dots.selected = None
+                    self.dots.x = x[self.drawn]
+                    self.dots.y = y[self.drawn]
+                self._show_density(data, drawn, x_range, y_range)
+
+    def _show_guides(self, gx: list, gy: list) -> None:
+        if not gx:
+            self.guides.visible = False
+            return
+        m = max(len(a) for a in gx)
+        xs = np.vstack([np.interp(np.linspace(0, 1, m), np.linspace(0, 1, len(a)), a) for a in gx])
+        ys = np.vstack([np.interp(np.linspace(0, 1, m), np.linspace(0, 1, len(a)), a) for a in gy])
+        colors = [PALETTE["guide"]] * len(gx)
+        if self.key == "influence":
+            colors = [PALETTE["cook"]] * len(gx)
+        with self.guides.hold_sync():
+            self.guides.x, self.guides.y = xs, ys
+            self.guides.colors = colors
+            self.guides.visible = True
+
+    def _show_smoother(self, data: PanelData) -> None:
+        sm = data.smoother
+        if sm is None:
+            self.smooth.visible = False
+            self.band.visible = False
+            return
+        c = sm["centre"].to_numpy(dtype=float)
+        m = sm["mean"].to_numpy(dtype=float)
+        lo = sm["lower"].to_numpy(dtype=float)
+        hi = sm["upper"].to_numpy(dtype=float)
+        with self.smooth.hold_sync(), self.band.hold_sync():
+            if data.kind == "strip":
+                # per level: a short bar at the mean and a vertical band of its interval
+                self.smooth.x = np.column_stack([c - 0.34, c + 0.34])
+                self.smooth.y = np.column_stack([m, m])
+                self.smooth.colors = [PALETTE["smoother"]] * len(c)
+                self.band.x = np.column_stack([c, c])
+                self.band.y = np.column_stack([lo, hi])
+                self.band.colors = [PALETTE["smoother"]] * len(c)
+            else:
+                self.smooth.x = c[None, :]
+                self.smooth.y = m[None, :]
+                self.band.x = np.vstack([c, c])
+                self.band.y = np.vstack([lo, hi])
+            self.smooth.visible = True
+            self.band.visible = bool(np.isfinite(lo).any() and np.isfinite(hi).any())
+
+    def _show_density(self, data: PanelData, drawn: DrawnPoints, xr, yr) -> None:
+        if drawn.complete:
+            self.density.visible = False
+            return
+        d = density(data.x, data.y, x_range=xr, y_range=yr,
+                    bins=(60 if data.kind != "strip" else max(2, 8 * len(data.levels)), 40))
+        with self.density.hold_sync():
+            self.shade_scale.max = float(max(math.sqrt(d.max_count), 1.0))
+            self.density.color = d.shade
+            self.density.x = d.x_centres
+            self.density.y = d.y_centres
+            self.density.visible = True
+
+    # -- selection ----------------------------------------------------------------------------
+    def brushed_mask(self) -> np.ndarray | None:
+        """Rows (over the fitted rows) inside this panel's brushed range; None when cleared."""
+        b, d = self.brush, self.data
+        if b is None or d is None:
+            return None
+        sx, sy = b.selected_x, b.selected_y
+        if sx is None or sy is None or len(sx) < 2 or len(sy) < 2:
+            return None
+        x0, x1 = sorted(float(v) for v in sx[:2])
+        y0, y1 = sorted(float(v) for v in sy[:2])
+        with np.errstate(invalid="ignore"):
+            return (d.x >= x0) & (d.x <= x1) & (d.y >= y0) & (d.y <= y1)
+
+    def highlight_rows(self, mask: np.ndarray | None, *, seed: int) -> None:
+        """Mark the selected rows: drawn dots change colour, others are drawn on top (capped)."""
+        if self.highlight is None or self.data is None:
+            return
+        if mask is None:
+            with self.dots.hold_sync(), self.highlight.hold_sync():
+                self.dots.selected = None
+                self.highlight.x = np.zeros(0)
+                self.highlight.y = np.zeros(0)
+            self.extra = np.empty(0, dtype=np.int64)
+            return
+        inside = np.flatnonzero(mask[self.drawn])
+        others = np.flatnonzero(mask)
+        others = others[~np.isin(others, self.drawn)]
+        x, y = self.data.x, self.data.y
+        others = others[np.isfinite(x[others]) & np.isfinite(y[others])]
+        if len(others) > _HIGHLIGHT_CAP:
+            rng = np.random.default_rng(seed)
+            others = np.sort(rng.choice(others, size=_HIGHLIGHT_CAP, replace=False))
+        self.extra = others
+        with self.dots.hold_sync(), self.highlight.hold_sync():
+            self.dots.selected = inside.astype(np.int32)
+            self.highlight.x = x[others]
+            self.highlight.y = y[others]
+
+    def clear_brush(self) -> None:
+        """Remove this panel's brush rectangle (another panel holds the selection now)."""
+        b = self.brush
+        if b is not None and (b.selected_x is not None or b.selected_y is not None):
+            with b.hold_sync():
+                b.selected_x = None
+                b.selected_y = None
+
+
+class _held:
+    """Hold the sync of several widgets at once (one message per widget, sent on exit)."""
+
+    def __init__(self, widgets: list):
+        self.widgets = widgets
+        self.contexts: list = []
+
+    def __enter__(self):
+        for w in self.widgets:
+            c = w.hold_sync()
+            c.__enter__()
+            self.contexts.append(c)
+        return self
+
+    def __exit__(self, *exc):
+        while self.contexts:
+            self.contexts.pop().__exit__(*exc)
+        return False
+
+
+def _short(text: str, k: int = 16) -> str:
+    return text if len(text) <= k else text[: k - 1] + "…"
+
+
+# ---------------------------------------------------------------------------------------------
+# the grid
+# ---------------------------------------------------------------------------------------------
+@dataclass
+class _Layout:
+    pinned: list = field(default_factory=list)
+    hidden: list = field(default_factory=list)
+
+
+class ResidualGrid(W.VBox):
+    """Residual panels ranked by pattern score, with pinning, hiding and linked brushing.
+
+    Parameters
+    ----------
+    study : Study
+        The study whose current fit is drawn.
+    run : callable, optional
+        ``run(fn, label)`` from the Explorer; the grid itself never changes the Study.
+    budget : int
+        Most dots per panel (about 500 keeps a full redraw of the grid under half a second).
+    max_panels : int
+        Panels shown at first; a button shows more.
+    seed : int, optional
+        Seed of the random part of the drawn sample (default: the Study's seed).
+
+    Attributes
+    ----------
+    panels : dict of key -> PanelView for the panels built so far.
+    order : keys of the panels on screen, top first.
+    selection : index labels of the brushed rows (empty when nothing is selected).
+    """
+
+    def __init__(self, study: Any, *, run: Callable | None = None, budget: int = 500,
+                 max_panels: int = 12, seed: int | None = None):
+        super().__init__(layout=W.Layout(width="100%"))
+        self._study = study
+        self._run = run
+        self.budget = int(budget)
+        self.max_panels = int(max_panels)
+        self.seed = int(getattr(study, "seed", 0) if seed is None else seed)
+        self.panels: dict[str, PanelView] = {}
+        self.order: list[str] = []
+        self.titles: dict[str, str] = {}
+        self.scores: dict[str, Score] = {}
+        self._layout = _Layout()
+        self._snap: _Snapshot | None = None
+        self._mask: np.ndarray | None = None
+        self._selection = pd.Index([])
+        self._source: str | None = None
+        self._busy = False
+        self._listeners: list[Callable] = []
+        self.cells = W.GridBox(layout=W.Layout(
+            width="100%", grid_template_columns="repeat(auto-fill, minmax(330px, 1fr))",
+            grid_gap="8px"))
+        self.note = W.Label("", style={"font_size": "11px", "text_color": PALETTE["muted"]})
+        self.more = W.Button(description="Show more panels", layout=W.Layout(width="auto"))
+        self.more.on_click(lambda _b: self._show_more())
+        self.hidden_pick = W.Dropdown(options=[], description="Hidden:",
+                                      layout=W.Layout(width="360px"))
+        self.unhide = W.Button(description="Show again", layout=W.Layout(width="auto"))
+        self.unhide.on_click(lambda _b: self.show_panel(self.hidden_pick.value)
+                             if self.hidden_pick.value else None)
+        self.unhide_all = W.Button(description="Show all hidden", layout=W.Layout(width="auto"))
+        self.unhide_all.on_click(lambda _b: self.show_all())
+        self.hidden_bar = W.HBox([self.hidden_pick, self.unhide, self.unhide_all],
+                                 layout=W.Layout(display="none", align_items="center"))
+        self.children = [self.note, self.cells, W.HBox([self.more, self.hidden_bar])]
+        self.refresh()
+
+    @property
+    def study(self) -> Any:
+        """The Study drawn by this grid."""
+        return self._study
+
+    @property
+    def selection(self) -> pd.Index:
+        """Index labels of the selected rows (all of them, not only the drawn dots)."""
+        return self._selection
+
+    @property
+    def hidden(self) -> list:
+        """Keys of hidden panels, in the order they were hidden."""
+        return list(self._layout.hidden)
+
+    @property
+    def pinned(self) -> list:
+        """Keys of pinned panels, in the order they were pinned."""
+        return list(self._layout.pinned)
+
+    def on_select(self, fn: Callable[[pd.Index], Any]) -> Callable[[], None]:
+        """Call ``fn(labels)`` after every brush (empty labels when cleared); returns a remover."""
+        self._listeners.append(fn)
+        return lambda: self._listeners.remove(fn) if fn in self._listeners else None
+
+    # -- refresh ------------------------------------------------------------------------------
+    def refresh(self) -> None:
+        """Redraw every visible panel from the Study's current fit and re-apply the selection."""
+        snap = _Snapshot(self._study, budget=self.budget, seed=self.seed)
+        self._snap = snap
+        plan = panel_keys(self._study)
+        self.titles = dict(plan)
+        self.scores = {key: _score_for(snap, key) for key, _title in plan}
+        known = set(self.titles)
+        self._layout.pinned = [k for k in self._layout.pinned if k in known]
+        self._layout.hidden = [k for k in self._layout.hidden if k in known]
+        self._arrange()
+        # the selection follows the rows: rows excluded since are simply no longer selected
+        if len(self._selection):
+            mask = snap.rows.isin(self._selection)
+            self._selection = snap.rows[mask]
+            self._mask = mask if mask.any() else None
+        else:
+            self._mask = None
+        self._paint_selection()
+
+    def ranked(self) -> list[str]:
+        """Every panel key, pinned first, then by score (worst first), unscored last."""
+        base = list(self.titles)
+        rest = sorted((k for k in base if k not in self._layout.pinned),
+                      key=lambda k: self.scores[k].rank)
+        return [k for k in self._layout.pinned if k in self.titles] + rest
+
+    def _arrange(self) -> None:
+        snap = self._snap
+        visible = [k for k in self.ranked() if k not in self._layout.hidden]
+        shown = visible[: self.max_panels]
+        boxes = []
+        for key in shown:
+            view = self.panels.get(key)
+            data = build_panel(snap, key, self.titles[key])
+            if view is None or view.kind != data.kind:
+                view = PanelView(key, data.kind, on_brush=self._brushed, on_pin=self.pin,
+                                 on_hide=self.hide_panel)
+                self.panels[key] = view
+            if view.pin.value != (key in self._layout.pinned):
+                view.pin.value = key in self._layout.pinned
+            if data.subtitle != view.subtitle.value:
+                view.subtitle.value = data.subtitle
+            view.show(data, snap.drawn)
+            boxes.append(view.box)
+        self.order = shown
+        self.cells.children = boxes
+        n_more = len(visible) - len(shown)
+        self.more.description = f"Show {min(n_more, 6)} more panel(s) of {n_more}"
+        self.more.layout.display = None if n_more > 0 else "none"
+        d = snap.drawn
+        if d.complete:
+            self.note.value = f"{d.n_rows:,} rows, all drawn. Brush a panel to select rows."
+        else:
+            self.note.value = (
+                f"{d.n_rows:,} rows: each panel draws {len(d.positions):,} "
+                f"({d.n_kept:,} most extreme or influential, the rest a random sample) over a "
+                "density shade of all rows. A brush selects every row in its range.")
+        hidden = self._layout.hidden
+        self.hidden_pick.options = [(self.titles[k], k) for k in hidden]
+        self.hidden_bar.layout.display = None if hidden else "none"
+
+    def _show_more(self) -> None:
+        self.max_panels += 6
+        self._arrange()
+        self._paint_selection()
+
+    # -- pin / hide ---------------------------------------------------------------------------
+    def pin(self, key: str, on: bool = True) -> None:
+        """Keep panel ``key`` at the top (``on=False`` releases it)."""
+        self._check_key(key)
+        pinned = self._layout.pinned
+        if on and key not in pinned:
+            pinned.append(key)
+            if key in self._layout.hidden:
+                self._layout.hidden.remove(key)
+        elif not on and key in pinned:
+            pinned.remove(key)
+        else:
+            return
+        self._arrange()
+        self._paint_selection()
+
+    def hide_panel(self, key: str) -> None:
+        """Take panel ``key`` off the grid; it stays in the hidden list until shown again."""
+        self._check_key(key)
+        if key in self._layout.hidden:
+            return
+        self._layout.hidden.append(key)
+        if key in self._layout.pinned:
+            self._layout.pinned.remove(key)
+        self._arrange()
+        self._paint_selection()
+
+    def show_panel(self, key: str) -> None:
+        """Bring a hidden panel back."""
+        if key in self._layout.hidden:
+            self._layout.hidden.remove(key)
+            self._arrange()
+            self._paint_selection()
+
+    def show_all(self) -> None:
+        """Bring every hidden panel back."""
+        if self._layout.hidden:
+            self._layout.hidden.clear()
+            self._arrange()
+            self._paint_selection()
+
+    def _check_key(self, key: str) -> None:
+        if key not in self.titles:
+            raise KeyError(f"no panel {key!r}; panels are: {', '.join(self.titles)}")
+
+    # -- selection ----------------------------------------------------------------------------
+    def _brushed(self, view: PanelView, change: dict) -> None:
+        if change["new"] or self._busy:
+            return  # still dragging: the work is done once, when the brush is released
+        self._busy = True
+        try:
+            mask = view.brushed_mask()
+            self._source = view.key if mask is not None else None
+            for other in self.panels.values():
+                if other is not view:
+                    other.clear_brush()
+            self._set_mask(mask)
+        finally:
+            self._busy = False
+        self._announce()
+
+    def select(self, labels) -> None:
+        """Select rows by index label (rows not in the current fit are ignored)."""
+        rows = self._snap.rows
+        mask = rows.isin(pd.Index(labels))
+        for v in self.panels.values():
+            v.clear_brush()
+        self._source = None
+        self._set_mask(mask if mask.any() else None)
+        self._announce()
+
+    def clear_selection(self) -> None:
+        """Select nothing."""
+        self.select([])
+
+    def _set_mask(self, mask: np.ndarray | None) -> None:
+        rows = self._snap.rows
+        if mask is None or not mask.any():
+            self._mask = None
+            self._selection = rows[:0]
+        else:
+            self._mask = mask
+            self._selection = rows[mask]
+        self._paint_selection()
+
+    def _paint_selection(self) -> None:
+        for key in self.order:
+            self.panels[key].highlight_rows(self._mask, seed=self.seed)
+
+    def _announce(self) -> None:
+        for fn in list(self._listeners):
+            fn(self._selection)
+
+
+def _score_for(snap: _Snapshot, key: str) -> Score:
+    """The score that ranks panel ``key``; cheap, so every panel can be ranked."""
+    if key == "fitted":
+        return snap.score_of("fitted")
+    if key.startswith(("var:", "group:", "partial:")):
+        # a partial residual plot shows the same leftover structure in its variable
+        return snap.score_of(key.split(":", 1)[1])
+    if key == "qq":
+        return snap.check_score("Jarque-Bera")
+    if key == "spread":
+        return snap.check_score("Breusch-Pagan (Koenker)")
+    if key == "memory":
+        return snap.check_score("Ljung-Box")
+    if key == "influence":
+        return snap.influence_score()
+    return Score(np.nan, np.nan, "score")
