@@ -137,6 +137,7 @@ class StudyWidget(anywidget.AnyWidget):
         try:
             with self.hold_sync():
                 self._pull()
+                self.error = ""
         except Exception as exc:  # the page shows the text; the kernel keeps running
             self.error = _describe(exc)
 
