@@ -113,8 +113,9 @@ class LeastSquares:
     ssr : float
         Weighted residual sum of squares.
     cond : float
-        2-norm condition number of the column-scaled whitened design ``X[:, kept]`` (scaling
-        removes units, so this measures collinearity, not the size of the numbers).
+        2-norm condition number of the whitened design ``X[:, kept]`` with columns scaled to unit
+        length (so it measures collinearity, not units; statsmodels' ``condition_number`` is of
+        the unscaled design and can be far larger).  NaN when no column is kept.
     method : str
         ``"householder"``, ``"cholqr2"`` or ``"extended"``.
     col_scale : ndarray (p,)
@@ -756,9 +757,12 @@ def _matvec_blocks(X, kept, b, dtype=float):
 
 
 def _cond(R: np.ndarray) -> float:
+    """2-norm condition number of the design with unit-norm columns, from its triangle."""
     if R.shape[0] == 0:
         return float("nan")
-    sv = np.linalg.svd(np.asarray(R, dtype=float), compute_uv=False)
+    R = np.asarray(R, dtype=float)
+    R = R / np.sqrt((R * R).sum(axis=0))  # column norms of R are those of the design
+    sv = np.linalg.svd(R, compute_uv=False)
     return float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
 
 
