@@ -13,7 +13,7 @@ import math
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass, field, replace
-from functools import cached_property
+from functools import cached_property, lru_cache
 from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
@@ -136,6 +136,7 @@ class _Model:
             w = study._weights[avail]
             ok &= np.isfinite(w)
         self.finite = ok
+        self.all_finite = bool(ok.all())
         self.avail = avail
         self.rows = avail[ok]  # positions in the user's data
         self.dropped = avail[~ok]
@@ -237,13 +238,14 @@ class _Model:
         cols, names = [], []
         for t in new:
             tc = self.cache.columns(t, codings[t])
-            cols.append(tc.values[self.finite])
+            cols.append(tc.values if self.all_finite else tc.values[self.finite])
             names.extend(tc.names)
         if not cols:
             return np.empty((len(self.rows), 0)), []
         return np.concatenate(cols, axis=1), names
 
 
+@lru_cache(maxsize=4096)
 def _parse_term(name: str) -> patsy.Term:
     desc = patsy.ModelDesc.from_formula("__y__ ~ 0 + " + name)
     ts = [t for t in desc.rhs_termlist if t.factors]

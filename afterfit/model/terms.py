@@ -6,6 +6,7 @@ by this module.  Column names are data too; they only ever reach formula text th
 """
 from __future__ import annotations
 
+import functools
 import keyword
 import re
 from dataclasses import dataclass, field
@@ -89,6 +90,14 @@ def normalise_term(term: str) -> list[str]:
     """patsy's spelling of the term(s) in ``term`` (e.g. ``"x*z"`` gives x, z, x:z)."""
     if not isinstance(term, str) or not term.strip():
         raise ValueError(f"a term must be non-empty formula text, got {term!r}")
+    return list(_normalise_term(term))
+
+
+@functools.lru_cache(maxsize=4096)
+def _normalise_term(term: str) -> tuple:
+    """patsy's spelling of the term(s) in ``term`` (e.g. ``"x*z"`` gives x, z, x:z)."""
+    if not isinstance(term, str) or not term.strip():
+        raise ValueError(f"a term must be non-empty formula text, got {term!r}")
     try:
         desc = patsy.ModelDesc.from_formula("__y__ ~ 0 + " + term)
     except patsy.PatsyError as exc:
@@ -96,7 +105,7 @@ def normalise_term(term: str) -> list[str]:
     names = [t.name() for t in desc.rhs_termlist if len(t.factors) > 0]
     if not names:
         raise ValueError(f"the term {term!r} adds no columns")
-    return names
+    return tuple(names)
 
 
 def term_variables(term: str, columns: Sequence[str]) -> list[str]:
