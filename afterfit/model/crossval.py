@@ -1,7 +1,8 @@
 """Cross-validated prediction error of a linear model, from one pass over the rows.
 
 Every fold is reduced once to the small upper-triangular factor ``R_f`` of its weighted, augmented
-rows ``sqrt(w) [X_f | y_f]`` (Householder QR, LAPACK ``geqrf``).  Because ``R_f' R_f`` equals that
+rows ``sqrt(w) [X_f | y_f]`` (Householder QR, LAPACK ``geqrf``, on cache-sized tiles of rows whose
+factors are stacked and re-factored, so the data are never copied whole).  Because ``R_f' R_f`` equals that
 fold's Gram matrix exactly, the factor of any union of folds is the QR of the stacked factors of
 its folds: a matrix with at most ``2 (p + 1)`` rows here, since the training set of fold ``j`` is
 assembled from a running prefix (folds before ``j``) and suffix (folds after ``j``).  So ten-fold
@@ -27,6 +28,11 @@ from scipy.linalg import lapack
 __all__ = ["CVResult", "make_folds", "cross_validate"]
 
 SCHEMES = ("kfold", "blocked", "forward")
+# rows per tile x columns: ~512 KiB of doubles, sized to stay in cache
+_TILE_ELEMENTS = 65536
+# up to this many folds, predictions come from one matrix product over X
+_GEMM_FOLDS = 64
+_GEMM_LOOKUP = 1 << 16
 
 
 @dataclass(frozen=True, eq=False)
@@ -195,22 +201,19 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
             "make_folds(n, k=k, order=times, scheme='forward')"
         )
 
-    # one stable sort makes every fold a contiguous slice; the gather is the only full copy
+    # one stable sort lists each fold's rows (ascending, so gathers walk X forwards); no copy of X
     perm = np.argsort(folds.astype(np.int16) if small else folds, kind="stable")
-    Xs = X.take(perm, axis=0)
-    ys = y[perm]
-    sws = None if sw is None else sw[perm]
     bounds = np.searchsorted(folds[perm], np.concatenate([labels, [labels[-1] + 1]]))
-    slices = [slice(bounds[i], bounds[i + 1]) for i in range(len(labels))]
-    fold_r = [_fold_r(Xs[s], ys[s], None if sws is None else sws[s]) for s in slices]
+    fold_rows = [perm[bounds[i]:bounds[i + 1]] for i in range(len(labels))]
     counts = np.diff(bounds)
-    wsum = counts.astype(float) if sw is None else np.add.reduceat(sws**2, bounds[:-1])
+    fold_r = [_fold_r(X, y, sw, rows) for rows in fold_rows]
+    wsum = counts.astype(float) if sw is None else np.add.reduceat((sw**2)[perm], bounds[:-1])
 
     head = 1 if has_train_only else 0
     base = fold_r[0] if has_train_only else None
     base_n = int(counts[0]) if has_train_only else 0
     base_w = float(wsum[0]) if has_train_only else 0.0
-    tr, tn, tw, tslices = fold_r[head:], counts[head:], wsum[head:], slices[head:]
+    tr, tn, tw = fold_r[head:], counts[head:], wsum[head:]
     # prefix[j]: train-only rows and folds before j; suffix[j]: folds j and after
     prefix = [base]
     for r in tr:
@@ -221,18 +224,14 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
     w_total = float(wsum.sum())
 
     params = np.full((k, p), np.nan)
-    pred_sorted = np.full(n, np.nan)
-    rows = []
-    sse = np.empty(k)
+    sols = []
     for j in range(k):
         if scheme == "forward":
             r_train = prefix[j]
             n_train = base_n + int(tn[:j].sum())
-            w_train = base_w + float(tw[:j].sum())
         else:
             r_train = _stack_r(prefix[j], suffix[j + 1])
             n_train = n - int(tn[j])
-            w_train = w_total - float(tw[j])
         if n_train < p:
             raise ValueError(
                 f"held-out fold {test_labels[j]} leaves {n_train} training rows for {p} columns; "
@@ -240,14 +239,16 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
             )
         sol = _solve_small(r_train, n_train)
         params[j, sol.kept] = sol.coef
-        b = np.zeros(p)
-        b[sol.kept] = sol.coef
-        s = tslices[j]
-        pred_sorted[s] = Xs[s] @ b
-        e = ys[s] - pred_sorted[s]
-        if sws is not None:
-            e = e * sws[s]
-        sse[j] = e @ e
+        sols.append((sol, n_train))
+    coef = np.where(np.isnan(params), 0.0, params)
+    predictions = _predict(X, folds, test_labels, coef, fold_rows[head:])
+    we2 = (y - predictions) ** 2
+    if sw is not None:
+        we2 *= sw**2
+    sse = np.array([we2[rows].sum() for rows in fold_rows[head:]])
+    w_train = (base_w + np.concatenate([[0.0], np.cumsum(tw)[:-1]])) if scheme == "forward" else w_total - tw
+    rows = []
+    for j, (sol, n_train) in enumerate(sols):
         kept = set(sol.kept.tolist())
         rows.append(
             {
@@ -255,15 +256,13 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
                 "n_train": n_train,
                 "n_test": int(tn[j]),
                 "rmse_test": float(np.sqrt(sse[j] / tw[j])),
-                "rmse_train": float(np.sqrt(sol.ssr / w_train)),
+                "rmse_train": float(np.sqrt(sol.ssr / w_train[j])),
                 "rank": sol.rank,
                 "aliased": tuple(names[i] for i in range(p) if i not in kept),
             }
         )
     full = _solve_small(prefix[k], n)
     per_fold = pd.DataFrame(rows)
-    predictions = np.empty(n)
-    predictions[perm] = pred_sorted
     return CVResult(
         scheme=scheme,
         k=k,
@@ -289,21 +288,57 @@ class _Small:
     ssr: float
 
 
-def _fold_r(Xf, yf, swf):
-    """R factor of one fold's weighted augmented rows ``sqrt(w) [X | y]`` (at most p+1 rows)."""
-    m, p = Xf.shape
-    # Fortran order so LAPACK factors in place without another copy
-    Z = np.empty((m, p + 1), order="F")
-    if swf is None:
-        Z[:, :p] = Xf
-        Z[:, p] = yf
-    else:
-        np.multiply(Xf, swf[:, None], out=Z[:, :p])
-        np.multiply(yf, swf, out=Z[:, p])
-    qr, _tau, _work, info = lapack.dgeqrf(Z, overwrite_a=1)
-    if info != 0:  # pragma: no cover - LAPACK argument error, not data dependent
-        raise RuntimeError(f"LAPACK dgeqrf failed with info={info}")
-    return np.triu(qr[: min(m, p + 1)])
+def _fold_r(X, y, sw, rows):
+    """R factor of the weighted augmented rows ``sqrt(w) [X | y]`` of one fold (<= p+1 rows).
+
+    Rows are factored in tiles small enough to stay in cache (TSQR: each tile's R is stacked onto
+    the running R and re-factored), so no copy of the fold is ever made.
+    """
+    p = X.shape[1]
+    R = None
+    tile = max(_TILE_ELEMENTS // (p + 1), p + 1)
+    buf = np.empty((min(tile, len(rows)), p + 1), order="F")
+    for start in range(0, len(rows), tile):
+        ii = rows[start:start + tile]
+        # Fortran order so LAPACK factors in place
+        Z = buf if len(ii) == len(buf) else np.empty((len(ii), p + 1), order="F")
+        Z[:, :p] = X.take(ii, axis=0)
+        np.take(y, ii, out=Z[:, p])
+        if sw is not None:
+            Z *= sw[ii, None]
+        qr, _tau, _work, info = lapack.dgeqrf(Z, overwrite_a=1)
+        if info != 0:  # pragma: no cover - LAPACK argument error, not data dependent
+            raise RuntimeError(f"LAPACK dgeqrf failed with info={info}")
+        R = _stack_r(R, np.triu(qr[: min(len(ii), p + 1)]))
+    return R
+
+
+def _predict(X, folds, test_labels, coef, test_rows):
+    """Held-out prediction of every row from its fold's coefficients (NaN for train-only rows)."""
+    n, p = X.shape
+    k = len(test_labels)
+    out = np.full(n, np.nan)
+    if k > _GEMM_FOLDS:
+        for j, rows in enumerate(test_rows):
+            out[rows] = X[rows] @ coef[j]
+        return out
+    # few folds: one sequential pass of X @ coef.T (a matrix product) beats k random gathers
+    lookup = None
+    if test_labels[-1] < _GEMM_LOOKUP:
+        lookup = np.full(int(test_labels[-1]) + 2, -1)
+        lookup[test_labels + 1] = np.arange(k)
+    step = max(_TILE_ELEMENTS // p, 1)
+    for s in range(0, n, step):
+        f = folds[s:s + step]
+        if lookup is not None:
+            c = lookup[f + 1]
+            held = c >= 0
+        else:
+            c = np.minimum(np.searchsorted(test_labels, f), k - 1)
+            held = test_labels[c] == f
+        P = X[s:s + step] @ coef.T
+        out[s:s + step][held] = P[np.flatnonzero(held), c[held]]
+    return out
 
 
 def _stack_r(a, b):
@@ -390,6 +425,9 @@ def _check_inputs(X, y, folds, weights, names):
     if p == 0:
         raise ValueError("X has no columns; include at least an intercept column of ones")
     for name, arr in (("X", X), ("y", y)):
+        # a column sum is finite unless the column holds NaN/inf (or overflows): cheap first test
+        if np.isfinite(arr.sum(axis=0)).all():
+            continue
         bad = ~np.isfinite(arr)
         if bad.any():
             row = int(np.flatnonzero(bad.reshape(n, -1).any(axis=1))[0])

@@ -247,6 +247,20 @@ def test_small_n_leave_one_out():
     assert res.per_fold["n_train"].tolist() == [3, 3, 3, 3]
 
 
+def test_many_folds_and_sparse_labels():
+    # 90 folds takes the per-fold prediction path; gaps and large labels are just labels
+    X, y, _ = _design(90, 3, seed=8)
+    loo = make_folds(90, k=90, seed=0)
+    res = cross_validate(X, y, loo)
+    np.testing.assert_allclose(res.predictions, _naive(X, y, loo, "kfold"), rtol=1e-8)
+    press = OLSInfluence(sm.OLS(y, X).fit()).resid_press  # statsmodels PRESS residuals
+    np.testing.assert_allclose(y - res.predictions, press, rtol=1e-8)
+    sparse = np.array([3, 70_000, 10**9])[make_folds(90, k=3, seed=1)]
+    res = cross_validate(X, y, sparse)
+    np.testing.assert_allclose(res.predictions, _naive(X, y, sparse, "kfold"), rtol=1e-8)
+    assert res.per_fold["fold"].tolist() == [3, 70_000, 10**9]
+
+
 def test_hostile_inputs_raise_with_advice():
     X, y, _ = _design(20, 3, seed=0)
     f = make_folds(20, k=4)
