@@ -720,20 +720,29 @@ class Study:
             self._examined_terms.update(c.term for c in cands)
             return table
 
-    def _tag_for(self, term: str) -> tuple[str, int]:
-        table = self.candidates()
-        key = " + ".join(T.normalise_term(term))
-        for _, row in table.iterrows():
-            if " + ".join(T.normalise_term(row["term"])) == key:
-                return row["tag"], len(table)
-        # a term typed by the analyst that the catalogue does not hold: stated if every variable
-        # it reads is declared, otherwise speculative (its evidence was not screened)
+    def _declared(self, term: str) -> bool:
+        """True when every column the term reads is declared (plausible, groups or time)."""
         vars_ = T.term_variables(term, list(self._frame.columns))
         decl = self.declarations
         declared = set(decl.plausible) | set(decl.groups) | ({self.time_column} - {None})
-        if vars_ and all(v in declared for v in vars_):
-            return "stated", len(table)
-        return "speculative", len(table)
+        return bool(vars_) and all(v in declared for v in vars_)
+
+    def _tag_for(self, term: str) -> tuple[str, int]:
+        """The tag a term has now, and how many candidates the analyst had in view.
+
+        A declared term is *stated* without screening; otherwise the candidate table decides
+        (computed if needed); a term the catalogue does not hold is *speculative*.
+        """
+        table = self._cand_cache.get(self.state)
+        if table is None and self._declared(term):
+            return "stated", 0
+        if table is None:
+            table = self.candidates()
+        key = tuple(T.normalise_term(term))
+        for cand_term, tag in zip(table["term"], table["tag"]):
+            if tuple(T.normalise_term(cand_term)) == key:
+                return tag, len(table)
+        return ("stated" if self._declared(term) else "speculative"), len(table)
 
     # -- panels for the view --------------------------------------------------------------------
     def panel_variables(self) -> dict:
