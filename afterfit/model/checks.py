@@ -534,24 +534,28 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
     sd = Xn.std(axis=0)
     sd[sd == 0] = 1.0
     sigma2 = float(d.e @ d.e) / n  # ML variance: the original Breusch-Pagan scale
-    iu, ju = np.triu_indices(m)
-    ncol = m + iu.size + 1  # linear, products, and u = e^2 / sigma2 last
+    nprod = m * (m + 1) // 2
+    ncol = m + nprod + 1  # linear, products, and u = e^2 / sigma2 last
 
     G = np.zeros((ncol, ncol))
     sums = np.zeros(ncol)
     shift = None
     for sl in _chunks(n):
-        xs = (Xn[sl] - mu) / sd
-        Z = np.empty((xs.shape[0], ncol))
+        # column-major chunk: the Gram product below is several times faster on it
+        xs = np.asfortranarray((Xn[sl] - mu) / sd)
+        Z = np.empty((xs.shape[0], ncol), order="F")
         Z[:, :m] = xs
-        Z[:, m:m + iu.size] = xs[:, iu] * xs[:, ju]
+        off = m
+        for i in range(m):
+            np.multiply(xs[:, i:], xs[:, i:i + 1], out=Z[:, off:off + m - i])
+            off += m - i
         es = d.e[sl]
         Z[:, -1] = es * es / sigma2
         if shift is None:
             # shifting by the first chunk's means keeps the later centring free of cancellation
             shift = Z.mean(axis=0)
         Z -= shift
-        G += _syrk(Z)
+        G += Z.T @ Z
         sums += Z.sum(axis=0)
     mean_dev = sums / n
     Gc = G - n * np.outer(mean_dev, mean_dev)
@@ -601,15 +605,6 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
                    f"or products (White {_fmt_p(p)}).")
     rows.append(_Row(names[2], float(stat), str(r_w), p, reading, note))
     return rows
-
-
-def _syrk(Z: np.ndarray) -> np.ndarray:
-    """Z'Z for a C-ordered chunk, with half the work of a general product."""
-    from scipy.linalg import blas
-
-    # Z.T is Fortran-ordered (ncol x rows): dsyrk forms A A' = Z'Z without copying
-    U = blas.dsyrk(1.0, Z.T, trans=0, lower=0)
-    return np.triu(U) + np.triu(U, 1).T
 
 
 # --------------------------------------------------------------------------------------------
@@ -765,12 +760,15 @@ def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
     while s < n:
         e = min(n, s + _HC_BLOCK)
         Xb, yb = rows(s, e)
-        b = sla.solve_triangular(Rk, z, check_finite=False)
-        V = sla.solve_triangular(Rk, Xb.T, trans="T", check_finite=False)  # (k, B) = R^-T Xb'
-        S = V.T @ V
+        # np.linalg.inv and matmul rather than triangular solves: OpenBLAS threads its
+        # triangular solves even for 12 x 12 inputs, which costs milliseconds per call on a
+        # busy machine; these stay in microseconds
+        Rinv = np.linalg.inv(Rk)
+        V = Xb @ Rinv
+        S = V @ V.T
         S[np.diag_indices_from(S)] += 1.0
-        L = sla.cholesky(S, lower=True, check_finite=False)
-        out[s - start:e - start] = sla.solve_triangular(L, yb - Xb @ b, lower=True,
+        L = np.linalg.cholesky(S)
+        out[s - start:e - start] = sla.solve_triangular(L, yb - Xb @ (Rinv @ z), lower=True,
                                                         check_finite=False)
         A = np.empty((k + e - s, k + 1))
         A[:k, :k] = Rk

@@ -1,0 +1,499 @@
+"""Specification checks against reference values shipped with statsmodels and against statsmodels.
+
+Sources, named beside each check:
+- R ``lmtest``/``stats`` and gretl/EViews results stored in statsmodels' own test files
+  (``statsmodels/stats/tests/test_diagnostic.py``, ``test_statstools.py``,
+  ``statsmodels/regression/tests/test_glsar_gretl.py``), on the model built there from the
+  ``macrodata`` set.
+- statsmodels' functions on seeded random designs (``het_white``, ``het_breuschpagan``,
+  ``linear_reset``, ``jarque_bera``, ``acorr_ljungbox``, ``durbin_watson``,
+  ``recursive_olsresiduals``/``linear_harvey_collier``, ``variance_inflation_factor``).
+Random designs here are test inputs for the comparison with statsmodels, not demo data.
+"""
+import math
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+import statsmodels.stats.diagnostic as smd
+from scipy import stats
+from statsmodels.datasets import longley, macrodata
+from statsmodels.stats.outliers_influence import variance_inflation_factor
+from statsmodels.stats.stattools import durbin_watson, jarque_bera
+
+from afterfit.model.checks import run_checks, vif
+from afterfit.model.ols import fit_ols
+
+TESTS = ["RESET", "Breusch-Pagan (Koenker)", "Breusch-Pagan (original)", "White",
+         "Durbin-Watson", "Ljung-Box", "Jarque-Bera", "Harvey-Collier"]
+
+
+# ------------------------------------------------------------------------------------------
+# fixtures
+
+
+@pytest.fixture(scope="module")
+def macro():
+    """The model of statsmodels' TestDiagnosticG (stats/tests/test_diagnostic.py)."""
+    d = macrodata.load_pandas().data
+    y = 400 * np.diff(np.log(d["realinv"].to_numpy()))
+    g = 400 * np.diff(np.log(d["realgdp"].to_numpy()))
+    lint = d["realint"].to_numpy()[:-1]
+    X = np.column_stack([np.ones_like(g), g, lint])
+    ls = fit_ols(X, y, names=["const", "gdp_growth", "realint_lag"])
+    return ls, run_checks(ls, lags=4)
+
+
+def _random_design(seed, n=160, p=4, *, const=True, dummy=False):
+    """Seeded random design with curvature and spread that grows with x1 (test input only)."""
+    rng = np.random.default_rng(seed)
+    cols = [rng.standard_normal(n) * (1 + j) + j for j in range(p - const - dummy)]
+    if dummy:
+        cols.append((rng.random(n) < 0.4).astype(float))
+    X = np.column_stack(([np.ones(n)] if const else []) + cols)
+    x1 = X[:, int(const)]
+    y = X @ rng.standard_normal(X.shape[1]) + 0.15 * x1**2 \
+        + rng.standard_normal(n) * (1 + 0.3 * np.abs(x1))
+    return X, y
+
+
+def _sm_ols(X, y, w=None):
+    return (sm.OLS(y, X) if w is None else sm.WLS(y, X, weights=w)).fit()
+
+
+def _quiet(fn, *args, **kwargs):
+    """Call a statsmodels peer, silencing its own warnings about the design (rank, conditioning)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # SingularMatrixWarning is a UserWarning
+        return fn(*args, **kwargs)
+
+
+def _sm_harvey_collier(X, y, skip=None):
+    """t test on recursive residuals from statsmodels (R harvtest convention).
+
+    statsmodels' own ``linear_harvey_collier`` slices ``[3:]`` whatever the number of
+    columns, so it only agrees with R when there are exactly 3; ``recursive_olsresiduals``
+    gives the residuals themselves.
+    """
+    k = X.shape[1] if skip is None else skip
+    rr = smd.recursive_olsresiduals(_sm_ols(X, y), skip=skip)
+    return stats.ttest_1samp(rr[4][k:], 0)
+
+
+# ------------------------------------------------------------------------------------------
+# reference values (R, gretl, EViews) shipped with statsmodels
+
+
+def test_frame_shape(macro):
+    _, r = macro
+    assert list(r.columns) == ["statistic", "df", "pvalue", "reading", "note"]
+    assert r.index.name == "test"
+    assert list(r.index) == TESTS + ["VIF: gdp_growth", "VIF: realint_lag"]
+    assert r["reading"].map(len).gt(20).all()
+
+
+def test_breusch_pagan_matches_r(macro):
+    _, r = macro
+    # R lmtest::bptest(fm) (studentized, Koenker), statsmodels test_diagnostic.py
+    k = r.loc["Breusch-Pagan (Koenker)"]
+    assert k.statistic == pytest.approx(0.709924388395087, rel=1e-10)
+    assert k.pvalue == pytest.approx(0.701199952134347, rel=1e-10)
+    assert k.df == "2"
+    # R lmtest::bptest(fm, studentize=FALSE), statsmodels test_diagnostic.py
+    o = r.loc["Breusch-Pagan (original)"]
+    assert o.statistic == pytest.approx(1.302014063483341, rel=1e-10)
+    assert o.pvalue == pytest.approx(0.5215203247110649, rel=1e-10)
+    assert o.df == "2"
+
+
+def test_reset_matches_gretl(macro):
+    _, r = macro
+    # gretl RESET (squares and cubes): F(2,197) = 5.219019, p 0.00619, printed digits;
+    # statsmodels regression/tests/test_glsar_gretl.py
+    row = r.loc["RESET"]
+    assert row.statistic == pytest.approx(5.219019, abs=5e-7)
+    assert row.pvalue == pytest.approx(0.00619, abs=5e-6)
+    assert row.df == "2, 197"
+    assert "Curvature not captured" in row.reading and "p = 0.006" in row.reading
+
+
+def test_durbin_watson_matches_gretl(macro):
+    _, r = macro
+    # gretl Durbin-Watson 2.213805 (printed digits), statsmodels test_glsar_gretl.py
+    row = r.loc["Durbin-Watson"]
+    assert row.statistic == pytest.approx(2.213805, abs=5e-7)
+    assert math.isnan(row.pvalue) and row.df == ""
+    assert "order" in row.reading and "row order" in row.note
+
+
+def test_ljung_box_matches_r(macro):
+    _, r = macro
+    # R Box.test(residuals(fm), lag=4, type="Ljung-Box"), statsmodels test_diagnostic.py
+    row = r.loc["Ljung-Box"]
+    assert row.statistic == pytest.approx(5.23587172795227, rel=1e-10)
+    assert row.pvalue == pytest.approx(0.263940335284713, rel=1e-10)
+    assert row.df == "4"
+
+
+def test_harvey_collier_matches_r(macro):
+    _, r = macro
+    # R lmtest::harvtest(fm), statsmodels test_diagnostic.py
+    row = r.loc["Harvey-Collier"]
+    assert row.statistic == pytest.approx(0.494432160939874, rel=1e-10)
+    assert row.pvalue == pytest.approx(0.6215491310408242, rel=1e-10)
+    assert row.df == "198"
+
+
+def test_white_matches_eviews(macro):
+    _, r = macro
+    # EViews White test (with cross terms): LM 33.503722896538441, p 2.9887960597830259e-06,
+    # statsmodels test_diagnostic.py test_het_white
+    row = r.loc["White"]
+    assert row.statistic == pytest.approx(33.503722896538441, rel=1e-10)
+    assert row.pvalue == pytest.approx(2.9887960597830259e-06, rel=1e-8)
+    assert row.df == "5"
+
+
+def _orthogonal_model(x):
+    """A no-intercept fit whose residuals are exactly ``x``: one regressor orthogonal to it."""
+    t = np.arange(x.size, dtype=float)
+    z = t - x * (x @ t) / (x @ x)
+    return fit_ols(z[:, None], x, names=["z"])
+
+
+def test_jarque_bera_and_durbin_watson_on_r_vector():
+    # the 20-value vector of statsmodels stats/tests/test_statstools.py, with its R results:
+    # car::durbinWatsonTest(x) 1.95298958377419; Jarque-Bera 1.9662677226861689,
+    # p 0.3741367669648314
+    x = np.array([-0.1184, -1.3403, 0.0063, -0.612, -0.3869, -0.2313, -2.8485, -0.2167,
+                  0.4153, 1.8492, -0.3706, 0.9726, -0.1501, -0.0337, -1.4423, 1.2489,
+                  0.9182, -0.2331, -0.6182, 0.183])
+    ls = _orthogonal_model(x)
+    np.testing.assert_allclose(ls.resid, x, rtol=0, atol=1e-14)
+    r = run_checks(ls, has_const=False)
+    assert r.loc["Durbin-Watson", "statistic"] == pytest.approx(1.95298958377419, rel=1e-12)
+    jb = r.loc["Jarque-Bera"]
+    assert jb.statistic == pytest.approx(1.9662677226861689, rel=1e-10)
+    assert jb.pvalue == pytest.approx(0.3741367669648314, rel=1e-10)
+    assert "Small sample (n = 20)" in jb.reading
+
+
+def _longley():
+    d = longley.load_pandas()
+    X = sm.add_constant(d.exog.to_numpy(dtype=float))
+    return X, d.endog.to_numpy(dtype=float), ["const"] + list(d.exog.columns)
+
+
+def test_longley_vif():
+    X, y, names = _longley()
+    ls = fit_ols(X, y, names=names)
+    v = vif(ls)
+    assert list(v.index) == names[1:]
+    # references.md (computed values, printed to 3 decimals)
+    np.testing.assert_allclose(v.to_numpy(), [135.532, 1788.513, 33.619, 3.589, 399.151, 758.981],
+                               rtol=0, atol=5e-4)
+    # statsmodels variance_inflation_factor (it warns about Longley's conditioning itself)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)
+        ref = [variance_inflation_factor(X, j) for j in range(1, X.shape[1])]
+    np.testing.assert_allclose(v.to_numpy(), ref, rtol=1e-7)
+    r = run_checks(ls)
+    row = r.loc["VIF: GNP"]
+    assert row.statistic == pytest.approx(v["GNP"])
+    assert "above 10, common practice" in row.reading
+    assert "not strongly collinear" in r.loc["VIF: ARMED", "reading"]
+
+
+# ------------------------------------------------------------------------------------------
+# agreement with statsmodels on random designs
+
+
+@pytest.mark.parametrize("seed,p,dummy", [(1, 2, False), (2, 4, False), (3, 5, True), (4, 6, True)])
+def test_agrees_with_statsmodels(seed, p, dummy):
+    X, y = _random_design(seed, p=p, dummy=dummy)
+    n, k = X.shape
+    ls = fit_ols(X, y)
+    r = run_checks(ls)
+    res = _sm_ols(X, y)
+    e = res.resid
+
+    reset = smd.linear_reset(res, power=3, test_type="fitted", use_f=True)
+    assert r.loc["RESET", "statistic"] == pytest.approx(float(reset.fvalue), rel=1e-8)
+    assert r.loc["RESET", "pvalue"] == pytest.approx(float(reset.pvalue), rel=1e-7)
+    assert r.loc["RESET", "df"] == f"{int(reset.df_num)}, {int(reset.df_denom)}"
+
+    for robust, row in ((True, "Breusch-Pagan (Koenker)"), (False, "Breusch-Pagan (original)")):
+        lm, lmp, _, _ = smd.het_breuschpagan(e, X, robust=robust)
+        assert r.loc[row, "statistic"] == pytest.approx(lm, rel=1e-8)
+        assert r.loc[row, "pvalue"] == pytest.approx(lmp, rel=1e-7)
+
+    lm, lmp, _, _ = _quiet(smd.het_white, e, X)
+    aux = X[:, np.triu_indices(k)[0]] * X[:, np.triu_indices(k)[1]]
+    assert r.loc["White", "df"] == str(np.linalg.matrix_rank(aux) - 1)
+    assert r.loc["White", "statistic"] == pytest.approx(lm, rel=1e-8)
+    assert r.loc["White", "pvalue"] == pytest.approx(lmp, rel=1e-7, abs=1e-300)
+    if dummy:  # the indicator squared duplicates the indicator: dropped as in statsmodels' rank
+        assert "dropped as duplicates" in r.loc["White", "note"]
+
+    assert r.loc["Durbin-Watson", "statistic"] == pytest.approx(durbin_watson(e), rel=1e-10)
+
+    lags = min(10, n // 5)
+    lb = smd.acorr_ljungbox(e, lags=lags)
+    assert r.loc["Ljung-Box", "df"] == str(lags)
+    assert r.loc["Ljung-Box", "statistic"] == pytest.approx(lb["lb_stat"].iloc[-1], rel=1e-9)
+    assert r.loc["Ljung-Box", "pvalue"] == pytest.approx(lb["lb_pvalue"].iloc[-1], rel=1e-8)
+
+    jb, jbp, _, _ = jarque_bera(e)
+    assert r.loc["Jarque-Bera", "statistic"] == pytest.approx(jb, rel=1e-9)
+    assert r.loc["Jarque-Bera", "pvalue"] == pytest.approx(jbp, rel=1e-8)
+
+    hc = _sm_harvey_collier(X, y)
+    assert r.loc["Harvey-Collier", "statistic"] == pytest.approx(hc.statistic, rel=1e-8)
+    assert r.loc["Harvey-Collier", "pvalue"] == pytest.approx(hc.pvalue, rel=1e-8)
+    assert r.loc["Harvey-Collier", "df"] == str(n - k - 1)
+    if k == 3:  # statsmodels' own wrapper is right for exactly three columns (see helper)
+        t, pv = smd.linear_harvey_collier(res)
+        assert r.loc["Harvey-Collier", "statistic"] == pytest.approx(t, rel=1e-8)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)
+        ref = [variance_inflation_factor(X, j) for j in range(1, k)]
+    np.testing.assert_allclose(r.loc[[f"VIF: x{j}" for j in range(1, k)], "statistic"], ref,
+                               rtol=1e-9)
+
+
+def test_time_order_agrees_with_statsmodels_on_sorted_rows():
+    X, y = _random_design(11, n=120, p=3)
+    rng = np.random.default_rng(12)
+    t = rng.permutation(X.shape[0]) * 7.0 + 1.5  # sort key, e.g. a time column
+    perm = np.argsort(t)
+    ls = fit_ols(X, y)
+    r = run_checks(ls, order=t, lags=5)
+    e_sorted = ls.resid[perm]
+    # statsmodels on the residuals in time order
+    assert r.loc["Durbin-Watson", "statistic"] == pytest.approx(durbin_watson(e_sorted), rel=1e-10)
+    lb = smd.acorr_ljungbox(e_sorted, lags=5)
+    assert r.loc["Ljung-Box", "statistic"] == pytest.approx(lb["lb_stat"].iloc[-1], rel=1e-9)
+    hc = _sm_harvey_collier(X[perm], y[perm])
+    assert r.loc["Harvey-Collier", "statistic"] == pytest.approx(hc.statistic, rel=1e-8)
+    assert "time order" in r.loc["Durbin-Watson", "note"]
+    assert "row order" not in r.loc["Durbin-Watson", "reading"]
+    # datetimes sort the same way, and order-free checks do not move
+    dt = np.datetime64("2020-01-01") + (t * 86400).astype("timedelta64[s]")
+    r2 = run_checks(ls, order=dt, lags=5)
+    pd.testing.assert_frame_equal(r, r2)
+    r0 = run_checks(ls, lags=5)
+    for name in ["RESET", "White", "Jarque-Bera", "Breusch-Pagan (Koenker)"]:
+        assert r0.loc[name, "statistic"] == r.loc[name, "statistic"]
+
+
+def test_harvey_collier_late_start_matches_statsmodels_skip():
+    # an indicator that is 0 for the first 30 rows: the first k rows cannot fix its coefficient,
+    # so the recursion starts at the first prefix that can (row 31), as statsmodels with skip=31
+    X, y = _random_design(21, n=100, p=3)
+    X = np.column_stack([X, (np.arange(100) >= 30) & (np.arange(100) % 3 == 0)]).astype(float)
+    ls = fit_ols(X, y)
+    r = run_checks(ls)
+    hc = _sm_harvey_collier(X, y, skip=31)
+    row = r.loc["Harvey-Collier"]
+    assert row.statistic == pytest.approx(hc.statistic, rel=1e-8)
+    assert row.df == str(100 - 31 - 1)
+    assert "starts after 31 rows" in row.note
+
+
+def test_weighted_fit_uses_whitened_residuals():
+    X, y = _random_design(31, n=150, p=4)
+    rng = np.random.default_rng(32)
+    w = rng.uniform(0.2, 3.0, X.shape[0])
+    ls = fit_ols(X, y, weights=w)
+    r = run_checks(ls)
+    res = _sm_ols(X, y, w)
+    we = res.wresid  # sqrt(w) * e
+    # RESET: statsmodels WLS with the powers of the fitted values added, F test on them
+    # (statsmodels' linear_reset refits without the weights, so it is not the peer here)
+    f = res.fittedvalues
+    big = sm.WLS(y, np.column_stack([X, f**2, f**3]), weights=w).fit()
+    ft = big.f_test(np.eye(2, X.shape[1] + 2, k=X.shape[1]))
+    assert r.loc["RESET", "statistic"] == pytest.approx(float(ft.fvalue), rel=1e-8)
+    lm = smd.het_breuschpagan(we, X)[0]
+    assert r.loc["Breusch-Pagan (Koenker)", "statistic"] == pytest.approx(lm, rel=1e-8)
+    assert r.loc["White", "statistic"] == pytest.approx(smd.het_white(we, X)[0], rel=1e-8)
+    assert r.loc["Durbin-Watson", "statistic"] == pytest.approx(durbin_watson(we), rel=1e-10)
+    assert r.loc["Jarque-Bera", "statistic"] == pytest.approx(jarque_bera(we)[0], rel=1e-9)
+    sw = np.sqrt(w)
+    hc = _sm_harvey_collier(X * sw[:, None], y * sw)
+    assert r.loc["Harvey-Collier", "statistic"] == pytest.approx(hc.statistic, rel=1e-8)
+    # weighted VIF = 1 / (1 - R^2) of the weighted regression of x_j on the others (statsmodels)
+    for j in range(1, X.shape[1]):
+        others = np.delete(X, j, axis=1)
+        r2 = sm.WLS(X[:, j], others, weights=w).fit().rsquared
+        assert r.loc[f"VIF: x{j}", "statistic"] == pytest.approx(1 / (1 - r2), rel=1e-9)
+    assert "whitened" in r.loc["Jarque-Bera", "note"]
+
+
+def test_zero_weight_rows_are_left_out():
+    X, y = _random_design(41, n=90, p=3)
+    w = np.ones(90)
+    w[::9] = 0.0
+    full = run_checks(fit_ols(X, y, weights=w))
+    keep = w > 0
+    sub = run_checks(fit_ols(X[keep], y[keep], weights=w[keep]))
+    np.testing.assert_allclose(full["statistic"], sub["statistic"], rtol=1e-9)
+    assert "10 rows with zero weight left out" in full.loc["RESET", "note"]
+
+
+def test_no_constant_model():
+    # documented difference: the auxiliary regressions keep a constant (statsmodels' het_white
+    # uses the given columns only), so the peer here is statsmodels with the constant added
+    X, y = _random_design(51, n=140, p=3, const=False)
+    ls = fit_ols(X, y)
+    r = run_checks(ls, has_const=False)
+    res = _sm_ols(X, y)
+    reset = smd.linear_reset(res, power=3, use_f=True)
+    assert r.loc["RESET", "statistic"] == pytest.approx(float(reset.fvalue), rel=1e-8)
+    Xc = sm.add_constant(X)
+    lm = smd.het_breuschpagan(res.resid, Xc)[0]
+    assert r.loc["Breusch-Pagan (Koenker)", "statistic"] == pytest.approx(lm, rel=1e-8)
+    assert r.loc["White", "statistic"] == pytest.approx(smd.het_white(res.resid, Xc)[0], rel=1e-8)
+    # uncentred VIF without intercept: statsmodels OLS without constant has an uncentred R^2
+    for j in range(3):
+        r2 = sm.OLS(X[:, j], np.delete(X, j, axis=1)).fit().rsquared
+        assert r.loc[f"VIF: x{j}", "statistic"] == pytest.approx(1 / (1 - r2), rel=1e-9)
+
+
+def test_one_regressor_without_constant():
+    X, y = _random_design(61, n=60, p=1, const=False)
+    ls = fit_ols(X, y)
+    r = run_checks(ls, has_const=False)
+    res = _sm_ols(X, y)
+    lm = smd.het_breuschpagan(res.resid, sm.add_constant(X))[0]
+    assert r.loc["Breusch-Pagan (Koenker)", "statistic"] == pytest.approx(lm, rel=1e-8)
+    assert r.loc["RESET", "statistic"] == pytest.approx(
+        float(smd.linear_reset(res, power=3, use_f=True).fvalue), rel=1e-8)
+    assert r.loc["VIF: x0", "statistic"] == pytest.approx(1.0)
+
+
+def test_intercept_only_model():
+    rng = np.random.default_rng(71)
+    y = rng.standard_normal(50)
+    ls = fit_ols(np.ones((50, 1)), y, names=["Intercept"])
+    r = run_checks(ls)
+    for name in ["RESET", "Breusch-Pagan (Koenker)", "Breusch-Pagan (original)", "White"]:
+        assert math.isnan(r.loc[name, "statistic"])
+        assert r.loc[name, "reading"].startswith("Undefined")
+    # residuals are y - mean: statsmodels on them
+    e = y - y.mean()
+    assert r.loc["Durbin-Watson", "statistic"] == pytest.approx(durbin_watson(e), rel=1e-10)
+    assert r.loc["Jarque-Bera", "statistic"] == pytest.approx(jarque_bera(e)[0], rel=1e-9)
+    hc = _sm_harvey_collier(np.ones((50, 1)), y)
+    assert r.loc["Harvey-Collier", "statistic"] == pytest.approx(hc.statistic, rel=1e-8)
+    assert not any(i.startswith("VIF") for i in r.index)
+
+
+# ------------------------------------------------------------------------------------------
+# hostile cases
+
+
+def test_exact_fit_is_undefined_without_warnings():
+    rng = np.random.default_rng(81)
+    X = np.column_stack([np.ones(40), rng.standard_normal((40, 2))])
+    y = X @ np.array([1.0, 2.0, -3.0])
+    r = run_checks(fit_ols(X, y))  # warnings are errors under pytest
+    for name in TESTS:
+        assert math.isnan(r.loc[name, "statistic"]) and math.isnan(r.loc[name, "pvalue"])
+        assert "fits these rows exactly" in r.loc[name, "reading"]
+    assert np.isfinite(r.loc["VIF: x1", "statistic"])
+
+
+def test_as_many_rows_as_columns():
+    rng = np.random.default_rng(82)
+    X = np.column_stack([np.ones(3), rng.standard_normal((3, 2))])
+    r = run_checks(fit_ols(X, rng.standard_normal(3)))
+    assert r.loc[TESTS, "statistic"].isna().all()
+
+
+def test_tiny_sample():
+    rng = np.random.default_rng(83)
+    X = np.column_stack([np.ones(6), rng.standard_normal((6, 2))])
+    y = rng.standard_normal(6)
+    r = run_checks(fit_ols(X, y))
+    # RESET: 6 rows - 3 columns - 2 powers leaves 1 degree of freedom: still defined
+    assert r.loc["RESET", "df"] == "2, 1"
+    # White: 1 + 2 + 3 auxiliary columns leave no degrees of freedom in 6 rows
+    assert r.loc["White", "reading"].startswith("Undefined")
+    for name in ["Breusch-Pagan (Koenker)", "Jarque-Bera", "Harvey-Collier", "Ljung-Box"]:
+        assert np.isfinite(r.loc[name, "statistic"])
+        assert "Small sample (n = 6)" in r.loc[name, "reading"]
+    assert r.loc["Ljung-Box", "df"] == "1"  # max(1, min(10, 6 // 5))
+
+
+def test_aliased_column_has_infinite_vif():
+    X, y = _random_design(91, n=80, p=3)
+    X = np.column_stack([X, X[:, 1] + 2 * X[:, 2]])
+    ls = fit_ols(X, y, names=["const", "a", "b", "a_plus_2b"])
+    assert ls.aliased  # the kernel dropped one of the three
+    v = vif(ls)
+    assert math.isinf(v[ls.aliased[0]])
+    r = run_checks(ls)
+    assert "aliased" in r.loc[f"VIF: {ls.aliased[0]}", "reading"]
+    assert r.loc["RESET", "df"] == f"2, {80 - 3 - 2}"
+
+
+def test_readings_follow_alpha_and_sample_size(macro):
+    ls, r = macro
+    assert "Curvature not captured" in r.loc["RESET", "reading"]
+    strict = run_checks(ls, lags=4, alpha=0.001)
+    assert strict.loc["RESET", "reading"].startswith("No sign of missed curvature")
+    assert "Spread changes" in r.loc["White", "reading"]
+    big = run_checks(ls, lags=4, large_n=100)
+    assert "even a negligible departure" in big.loc["RESET", "reading"]
+    assert "even a negligible departure" not in big.loc["Ljung-Box", "reading"]  # not significant
+    assert "even a negligible departure" not in r.loc["RESET", "reading"]
+
+
+def test_has_const_true_needs_a_constant_in_the_design():
+    X, y = _random_design(95, n=50, p=2, const=False)
+    with pytest.raises(ValueError, match="has_const=False"):
+        run_checks(fit_ols(X, y))
+
+
+def test_implied_constant_is_accepted():
+    # indicators for every group reproduce the constant without an explicit column
+    rng = np.random.default_rng(96)
+    g = rng.integers(0, 3, 90)
+    X = np.column_stack([(g == j).astype(float) for j in range(3)] + [rng.standard_normal(90)])
+    y = X @ np.array([1.0, 2.0, 3.0, 0.5]) + rng.standard_normal(90)
+    r = run_checks(fit_ols(X, y))
+    res = _sm_ols(X, y)
+    # statsmodels wants an explicit constant: the same column space as [1, g==1, g==2, x]
+    Xc = np.column_stack([np.ones(90), X[:, 1:]])
+    assert r.loc["White", "statistic"] == pytest.approx(
+        _quiet(smd.het_white, res.resid, Xc)[0], rel=1e-8)
+    ref = _quiet(variance_inflation_factor, Xc, 3)
+    assert r.loc["VIF: x3", "statistic"] == pytest.approx(ref, rel=1e-9)
+
+
+@pytest.mark.parametrize("kwargs,match", [
+    ({"alpha": 1.5}, "alpha"),
+    ({"alpha": 0}, "alpha"),
+    ({"lags": 0}, "lags"),
+    ({"lags": 2.5}, "lags"),
+    ({"lags": 500}, "smaller lags"),
+    ({"large_n": -1}, "large_n"),
+    ({"order": np.arange(5)}, "one value per row"),
+    ({"order": np.r_[np.nan, np.arange(201.0)]}, "missing"),
+    ({"order": np.array(["a"] * 202)}, "numbers or datetimes"),
+])
+def test_bad_arguments_say_what_to_do(macro, kwargs, match):
+    ls, _ = macro
+    with pytest.raises(ValueError, match=match):
+        run_checks(ls, **kwargs)
+
+
+def test_not_a_fit():
+    with pytest.raises(TypeError, match="fit_ols"):
+        run_checks(np.zeros((3, 3)))
+    with pytest.raises(TypeError, match="fit_ols"):
+        vif("model")
