@@ -17,13 +17,14 @@ The page reports the path that worked (``{"kind": "exported", "what", "path"}``)
 """
 from __future__ import annotations
 
+import warnings
 from typing import Any
 
 import traitlets
 
 from afterfit.view._static import StudyWidget, _BadRequest, esm_path, request_text
 
-__all__ = ["ExportBridge", "current_cell_id"]
+__all__ = ["ExportBridge", "current_cell_id", "ipylab_frontend_class"]
 
 # every way an export can leave the widget, as reported in ``path``
 PATHS = ("cell-id", "ipylab", "clipboard", "select-copy", "copy-box")
@@ -36,15 +37,21 @@ _DONE = {
 _WHAT = {"code": "statsmodels code", "audit": "audit log"}
 
 
-def current_cell_id() -> str:
+def current_cell_id(shell: Any = None) -> str:
     """Id of the notebook cell being executed, or "" outside a notebook (or when unknown).
 
     JupyterLab and Notebook 7 put ``cellId`` in the metadata of each execute request.
+
+    Parameters
+    ----------
+    shell : InteractiveShell, optional
+        The IPython shell to ask; the running one by default.
     """
     try:
-        from IPython import get_ipython
+        if shell is None:
+            from IPython import get_ipython
 
-        shell = get_ipython()
+            shell = get_ipython()
         kernel = getattr(shell, "kernel", None)
         if kernel is None:
             return ""
@@ -53,6 +60,22 @@ def current_cell_id() -> str:
         return cell if isinstance(cell, str) else ""
     except Exception:  # any kernel without this protocol detail: no cell id, the fallbacks apply
         return ""
+
+
+def ipylab_frontend_class() -> Any:
+    """ipylab's ``JupyterFrontEnd`` class, or None when ipylab is not installed.
+
+    ipylab 1.x declares a trait with a type instead of an instance, which traitlets reports with
+    a DeprecationWarning at import; that is ipylab's to fix, and under warnings-as-errors (a test
+    run, a strict user) it must not stop the export, so it is silenced for this import only.
+    """
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Traits should be given as instances")
+        try:
+            from ipylab import JupyterFrontEnd
+        except ImportError:
+            return None
+    return JupyterFrontEnd
 
 
 class ExportBridge(StudyWidget):
@@ -103,11 +126,10 @@ class ExportBridge(StudyWidget):
 
     def _frontend_app(self) -> Any:
         if self._frontend is None:
-            try:
-                from ipylab import JupyterFrontEnd
-            except ImportError:
+            front_end = ipylab_frontend_class()
+            if front_end is None:
                 return None
-            self._frontend = JupyterFrontEnd()
+            self._frontend = front_end()
         return self._frontend
 
     def _request_insert(self, content: dict) -> None:

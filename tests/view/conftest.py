@@ -125,3 +125,30 @@ def wire(monkeypatch):
     if catcher.records:
         text = "\n".join(r.getMessage() for r in catcher.records)
         pytest.fail(f"a widget logged an exception instead of reporting it to the page:\n{text}")
+
+
+HOSTILE = "<img src=x onerror=alert(1)>"
+
+
+@pytest.fixture
+def view_study():
+    """A real Study with stated, evident and speculative candidates, for wiring tests.
+
+    No statistics are checked with it.  The frame is invented and seeded: y bends in x (so a
+    square term is evident), ``g`` is a declared group (stated), and a noise column carries a
+    name that would run script if it ever reached HTML unescaped (its terms are speculative).
+    """
+    import numpy as np
+    import pandas as pd
+
+    from afterfit.model.study import Study
+
+    rng = np.random.default_rng(20261202)
+    n = 120
+    df = pd.DataFrame({
+        "x": rng.normal(size=n),
+        HOSTILE: rng.normal(size=n),
+        "g": rng.choice(["north", "south", "east"], n),
+    })
+    df["y"] = 1 + 2 * df["x"] + 0.6 * df["x"] ** 2 + rng.normal(size=n)
+    return Study(df, "y ~ x", groups=["g"])
