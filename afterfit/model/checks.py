@@ -281,13 +281,13 @@ def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
 
     # Constant columns (one value in every row) are found directly; checking that the design
     # can reproduce a constant covers intercepts implied by indicator sets too.
-    const_cols = np.flatnonzero(np.all(X == X[:1], axis=0)) if n else np.array([], int)
+    const_cols = _constant_columns(X)
     if has_const and k:
         ones = np.ones(n) if sw is None else sw
         s = _colsum_weighted(X, sw)  # X' W 1
         Rt_s = sla.solve_triangular(R, s, trans="T")
         explained = float(Rt_s @ Rt_s)
-        total = float(ones @ ones)
+        total = _dot(ones, ones)
         if not explained >= total * (1 - 1e-8):
             raise ValueError(
                 "has_const=True but the model's columns cannot reproduce a constant; pass "
@@ -300,11 +300,11 @@ def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
     yw = y if sw is None else y * sw
     if has_const:
         ones = np.ones(n) if sw is None else sw
-        ref = yw - ones * (float(ones @ yw) / float(ones @ ones))
+        ref = yw - ones * (_dot(ones, yw) / _dot(ones, ones))
     else:
         ref = yw
-    ref_norm = float(np.linalg.norm(ref))
-    e_norm = float(np.linalg.norm(e))
+    ref_norm = math.sqrt(_dot(ref, ref))
+    e_norm = math.sqrt(_dot(e, e))
     cond = float(ls.cond) if np.isfinite(ls.cond) else 1e16
     tol = max(1e-10, 100 * np.finfo(float).eps * cond)
     exact = (not e_norm > tol * ref_norm) or ls.df_resid <= 0
@@ -355,8 +355,27 @@ def _colsum_weighted(X: np.ndarray, sw: np.ndarray | None) -> np.ndarray:
         return X.sum(axis=0)
     out = np.zeros(X.shape[1])
     for sl in _chunks(X.shape[0]):
-        out += (sw[sl] * sw[sl]) @ X[sl]
+        out += np.einsum("i,ij->j", sw[sl] * sw[sl], X[sl])
     return out
+
+
+def _dot(a: np.ndarray, b: np.ndarray) -> float:
+    """Inner product of two long vectors.
+
+    Not ``a @ b``: OpenBLAS threads its vector routines above a few thousand entries, and on a
+    busy machine each such call can take milliseconds instead of microseconds.
+    """
+    return float(np.einsum("i,i->", a, b))
+
+
+def _constant_columns(X: np.ndarray) -> np.ndarray:
+    """Positions of columns with one value in every row (the intercept, usually)."""
+    if X.shape[0] == 0:
+        return np.array([], dtype=int)
+    # screen on the first rows, then confirm the few candidates on all rows
+    head = X[:64]
+    cand = np.flatnonzero(np.all(head == head[:1], axis=0))
+    return np.array([j for j in cand if np.all(X[:, j] == X[0, j])], dtype=int)
 
 
 def _chunks(n: int, size: int = _CHUNK):
@@ -482,15 +501,15 @@ def _reset(d: _Data, *, has_const: bool, alpha: float) -> _Row:
         Z1 = powers(sl) - Xw @ B
         es = d.e[sl]
         G1 += Z1.T @ Z1
-        c1 += es @ Z1
+        c1 += np.einsum("i,ij->j", es, Z1)
         T2 += Xw.T @ Z1
-        te += Xw.T @ es
+        te += np.einsum("ij,i->j", Xw, es)
     B2 = sla.cho_solve((R, False), T2)
     G = G1 - B2.T @ T2
     G = (G + G.T) / 2
     c = c1 - B2.T @ te
     delta, q = _gram_quad(G, c, ref)
-    ssr0 = float(d.e @ d.e)
+    ssr0 = _dot(d.e, d.e)
     df2 = n - k - q
     if q == 0:
         return _undefined(name, "the fitted values take so few distinct values that their square "
@@ -533,7 +552,7 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
     mu = Xn.mean(axis=0)
     sd = Xn.std(axis=0)
     sd[sd == 0] = 1.0
-    sigma2 = float(d.e @ d.e) / n  # ML variance: the original Breusch-Pagan scale
+    sigma2 = _dot(d.e, d.e) / n  # ML variance: the original Breusch-Pagan scale
     nprod = m * (m + 1) // 2
     ncol = m + nprod + 1  # linear, products, and u = e^2 / sigma2 last
 
@@ -626,7 +645,7 @@ def _durbin_watson(d: _Data) -> _Row:
         return _undefined(name, "it needs at least two rows.", d.order_note)
     e = _ordered_resid(d)
     diff = np.diff(e)
-    dw = float(diff @ diff) / float(e @ e)
+    dw = _dot(diff, diff) / _dot(e, e)
     r1 = 1 - dw / 2
     where = "; these are in row order, as no time order was given." if d.perm is None else "."
     if dw < 1.5:
@@ -652,11 +671,11 @@ def _ljung_box(d: _Data, *, lags: int, alpha: float) -> _Row:
         return _undefined(name, f"{n} rows are too few for lags 1-{lags}.", d.order_note)
     e = _ordered_resid(d)
     x = e - e.mean()
-    c0 = float(x @ x)
+    c0 = _dot(x, x)
     if not c0 > 0:
         return _undefined(name, "the residuals do not vary.", d.order_note)
     ks = np.arange(1, lags + 1)
-    r = np.array([float(x[k:] @ x[:-k]) for k in ks]) / c0
+    r = np.array([_dot(x[k:], x[:-k]) for k in ks]) / c0
     q = float(n * (n + 2) * np.sum(r * r / (n - ks)))
     p = float(stats.chi2.sf(q, lags))
     where = "rows in row order, as no time order was given" if d.perm is None else "rows in time order"
@@ -824,11 +843,11 @@ def _vif_values(d: _Data, ls: LeastSquares, *, has_const: bool) -> pd.Series:
             continue
         x = d.X[:, pos]
         if has_const:
-            centre = x.mean() if wts is None else float(wts @ x) / float(wts.sum())
+            centre = x.mean() if wts is None else _dot(wts, x) / float(wts.sum())
             dev = x - centre
         else:
             dev = x
-        ss = float(dev @ dev) if wts is None else float(wts @ (dev * dev))
+        ss = _dot(dev, dev) if wts is None else _dot(wts, dev * dev)
         out[ls.names[col]] = float(V[pos, pos]) * ss
     for nm in ls.aliased:
         out[nm] = math.inf
