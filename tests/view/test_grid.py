@@ -1,0 +1,309 @@
+"""Residual grid on a recording comm: panels, ranking, pin/hide, sampling, brushing, reference lines.
+
+Reference values: statsmodels (OLS fit, ``OLSInfluence`` Cook's distance, ``ProbPlot`` plotting
+positions) and numpy (``histogram2d`` counts).  The frames are the invented, seeded ones of the
+shared ``view_study`` fixture; no statistic is checked against invented numbers.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.formula.api as smf
+from statsmodels.graphics.gofplots import ProbPlot
+from statsmodels.stats.outliers_influence import OLSInfluence
+
+from afterfit.model.study import Study
+from afterfit.view.grid import ResidualGrid
+from afterfit.view.sampling import choose_points, density
+
+HOSTILE = "<img src=x onerror=alert(1)>"
+
+
+def _timed(study: Study) -> Study:
+    """The same invented rows with a time order declared (for the autocorrelation panel)."""
+    df = study.data.assign(t=np.arange(len(study.data), dtype=float))
+    return Study(df, "y ~ x + C(g)", time="t")
+
+
+def _brush(wire, view, x, y):
+    """Act as the page: press, drag (selected_x/y change), release."""
+    wire.from_page(view.brush, state={"brushing": True})
+    wire.from_page(view.brush, state={"selected_x": list(map(float, x)),
+                                      "selected_y": list(map(float, y)), "brushing": False})
+
+
+# -- panels and layout -------------------------------------------------------------------------
+def test_every_question_has_a_panel(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    titles = [grid.panels[k].figure.title for k in grid.order]
+    assert sorted(titles) == sorted([
+        "Residual by fitted value", "Residual by x", f"Residual by {HOSTILE}", "Residual by g",
+        "Quantile check (studentized)", "Spread by fitted value",
+        "Influence map (leverage × studentized, Cook contours)", "Partial residual: x",
+    ])
+    # the page receives the titles as SVG text (bqplot sets them with d3 .text())
+    assert wire.state(grid.panels["fitted"].figure)["title"] == "Residual by fitted value"
+    # the categorical panel labels its levels, sorted as patsy sorts them
+    ax = grid.panels["group:g"].x_axis
+    assert [ax.tick_labels[str(int(t))] for t in ax.tick_values] == ["east", "north", "south"]
+    # every panel of rows draws dots, a smoother where the Study gives one, reference lines
+    fitted = grid.panels["fitted"]
+    assert fitted.smooth.visible and fitted.band.visible and fitted.guides.visible
+    sm = view_study.binned_means("fitted")
+    np.testing.assert_allclose(np.ravel(fitted.smooth.y), sm["mean"])  # the Study's numbers
+
+
+def test_memory_panel_only_with_time(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    assert "memory" not in grid.titles
+    timed = _timed(view_study)
+    grid = ResidualGrid(timed, max_panels=50)
+    view = grid.panels["memory"]
+    assert view.figure.title == "Residual memory (autocorrelation by lag)"
+    np.testing.assert_allclose(view.dots.y, timed.acf()["acf"].to_numpy())
+    assert view.brush is None  # bars are lags, not rows: nothing to brush
+
+
+def test_panels_are_ranked_worst_first(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    scores = view_study.pattern_scores()
+    checks = view_study.checks()
+    expected_p = {"fitted": scores.loc["fitted", "pvalue"], "var:x": scores.loc["x", "pvalue"],
+                  f"var:{HOSTILE}": scores.loc[HOSTILE, "pvalue"],
+                  "group:g": scores.loc["g", "pvalue"], "partial:x": scores.loc["x", "pvalue"],
+                  "qq": checks.loc["Jarque-Bera", "pvalue"],
+                  "spread": checks.loc["Breusch-Pagan (Koenker)", "pvalue"]}
+    for key, p in expected_p.items():
+        assert grid.scores[key].pvalue == pytest.approx(p, rel=1e-12, nan_ok=True)
+    ranked = [k for k in grid.order if np.isfinite(grid.scores[k].pvalue)]
+    ps = [grid.scores[k].pvalue for k in ranked]
+    assert ps == sorted(ps)
+    # y bends in x, so the residual-by-x panel ranks above the hostile noise column
+    assert grid.order.index("var:x") < grid.order.index(f"var:{HOSTILE}")
+    # panels without a p-value (the influence map, with no Cook's D >= 1) come after
+    assert grid.order[-1] == "influence"
+    # the subtitle shows the score the panel is ranked by
+    assert "p " in grid.panels["var:x"].subtitle.value
+    assert grid.panels["var:x"].subtitle.value.startswith("pattern score (η²)")
+
+
+def test_pin_and_hide_from_the_page(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    last = grid.order[-1]
+    wire.from_page(grid.panels[last].pin, state={"value": True})
+    assert grid.order[0] == last and grid.pinned == [last]
+    assert grid.cells.children[0] is grid.panels[last].box
+    # the cells' order reached the page
+    ids = wire.state(grid.cells)["children"]
+    assert ids[0] == "IPY_MODEL_" + grid.panels[last].box.model_id
+    # hide: off the grid, listed for restoring
+    victim = grid.order[1]
+    grid.panels[victim].hide.click()
+    assert victim not in grid.order and grid.hidden == [victim]
+    assert grid.hidden_pick.options == ((grid.titles[victim], victim),)
+    assert grid.hidden_bar.layout.display is None
+    # pins and hidden panels survive a refit
+    view_study.add("I(x ** 2)")
+    grid.refresh()
+    assert grid.order[0] == last and victim not in grid.order
+    grid.hidden_pick.value = victim
+    grid.unhide.click()
+    assert victim in grid.order and grid.hidden == []
+    assert grid.hidden_bar.layout.display == "none"
+    wire.from_page(grid.panels[last].pin, state={"value": False})
+    assert grid.pinned == []
+
+
+def test_more_panels_button(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=3)
+    assert len(grid.order) == 3 and len(grid.panels) == 3  # panels off screen are not built
+    grid.more.click()
+    assert len(grid.order) == len(grid.titles)
+    assert grid.more.layout.display == "none"
+
+
+# -- what is drawn -----------------------------------------------------------------------------
+def test_dots_are_binary_buffers_on_fixed_scales(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    view = grid.panels["var:x"]
+    opening = [m for m in wire.log(view.dots) if m.msg_type == "comm_open"][0]
+    updates = [m for m in wire.log(view.dots) if m.method == "update" and "x" in m.data["state"]]
+    assert updates, "the dots' coordinates were sent"
+    last = updates[-1]
+    assert ["x"] in [p[:1] for p in last.data["buffer_paths"]]
+    assert isinstance(last.data["state"]["x"], dict)  # {dtype, shape, value->buffer}, no list
+    assert last.data["state"]["x"]["dtype"] == "float64"
+    total = sum(len(b) for b in last.buffers)
+    assert total == 2 * 8 * len(view.drawn)
+    json.dumps(opening.data)  # the JSON part is plain JSON
+    # scales are fixed from all the data (not computed by the browser)
+    x = view_study.data.loc[view_study.rows, "x"]
+    assert view.xs.min < x.min() and view.xs.max > x.max()
+    r = view_study.fit.resid
+    assert view.ys.min < r.min() and view.ys.max > r.max()
+    state = wire.state(view.xs)
+    assert state["min"] == view.xs.min and state["max"] == view.xs.max
+
+
+def test_sample_keeps_extremes_and_is_seeded(view_study):
+    infl = view_study.influence
+    drawn = choose_points(infl, budget=40, seed=3)
+    assert len(drawn.positions) == 40 and not drawn.complete
+    assert drawn.n_kept == 16
+    pos = set(drawn.positions.tolist())
+    top_student = np.argsort(-np.abs(infl["student_ext"].to_numpy()))[:5]
+    top_cooks = np.argsort(-infl["cooks_d"].to_numpy())[:5]
+    assert set(top_student.tolist()) <= pos and set(top_cooks.tolist()) <= pos
+    again = choose_points(infl, budget=40, seed=3)
+    np.testing.assert_array_equal(drawn.positions, again.positions)
+    other = choose_points(infl, budget=40, seed=4)
+    assert not np.array_equal(drawn.positions, other.positions)
+    everything = choose_points(infl, budget=500)
+    assert everything.complete and len(everything.positions) == len(infl)
+    with pytest.raises(ValueError, match="budget"):
+        choose_points(infl, budget=0)
+
+
+def test_density_counts_match_numpy(view_study):
+    rng = np.random.default_rng(7)
+    x, y = rng.normal(size=5000), rng.normal(size=5000)
+    x[:3] = np.nan
+    d = density(x, y, x_range=(-5, 5), y_range=(-4, 4), bins=(20, 10))
+    ok = np.isfinite(x)
+    # numpy.histogram2d as the reference (rows of the shade are y bins)
+    ref, _, _ = np.histogram2d(y[ok], x[ok], bins=(10, 20), range=((-4, 4), (-5, 5)))
+    np.testing.assert_allclose(d.shade.astype(float) ** 2, ref, rtol=1e-5)
+    assert d.max_count == int(ref.max())
+    with pytest.raises(ValueError, match="empty range"):
+        density(x, y, x_range=(1, 1), y_range=(0, 1))
+
+
+def test_density_layer_when_sampled(wire, view_study):
+    grid = ResidualGrid(view_study, budget=40, max_panels=50)
+    view = grid.panels["var:x"]
+    assert len(view.drawn) == 40
+    assert view.density.visible
+    assert view.density.color.dtype == np.float32
+    n = len(view_study.rows)
+    assert round(float((view.density.color.astype(float) ** 2).sum())) == n  # every row counted
+    assert "each panel draws 40" in grid.note.value
+    small = ResidualGrid(view_study, max_panels=50)
+    assert not small.panels["var:x"].density.visible
+
+
+def test_qq_positions_match_statsmodels(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    data = grid.panels["qq"].data
+    y = view_study.influence["student_ext"].to_numpy()
+    np.testing.assert_allclose(data.y, y)
+    # statsmodels ProbPlot with a=0.375 uses Blom's positions (i - 0.375) / (n + 0.25)
+    ref = ProbPlot(y, a=0.375).theoretical_quantiles
+    np.testing.assert_allclose(np.sort(data.x), ref, rtol=1e-12)
+    assert np.array_equal(np.argsort(data.x), np.argsort(y, kind="stable"))
+
+
+def test_partial_residuals_match_statsmodels(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    data = grid.panels["partial:x"].data
+    res = smf.ols("y ~ x", view_study.data).fit()  # statsmodels as the reference
+    np.testing.assert_allclose(data.y, res.resid + res.params["x"] * view_study.data["x"],
+                               rtol=1e-9, atol=1e-12)
+
+
+def test_cook_contours_separate_rows_as_statsmodels_does(wire, view_study):
+    # one planted far, off-line row, so some Cook's distances pass the contour levels
+    df = view_study.data.copy()
+    df.loc[len(df)] = {"x": 6.0, HOSTILE: 0.0, "g": "east", "y": -20.0}
+    study = Study(df, "y ~ x")
+    grid = ResidualGrid(study, max_panels=50)
+    view = grid.panels["influence"]
+    cooks = OLSInfluence(smf.ols("y ~ x", df).fit()).cooks_distance[0]  # statsmodels reference
+    h = study.influence["leverage"].to_numpy()
+    r = study.influence["student_int"].to_numpy()
+    gx, gy = view.guides.x, view.guides.y
+    assert gx.shape[0] == 4  # two levels, each above and below zero
+    for level, (cx, cy) in zip([0.5, 1.0], [(gx[0], gy[0]), (gx[2], gy[2])]):
+        assert np.all(np.diff(cx) > 0)
+        inside = (h >= cx[0]) & (h <= cx[-1])
+        bound = np.interp(h[inside], cx, cy)
+        outside = np.abs(r[inside]) > bound
+        assert np.array_equal(outside, cooks[inside] > level)
+    assert cooks.max() > 1 and grid.order[0] == "influence"  # D >= 1: look here first
+
+
+# -- brushing ------------------------------------------------------------------------------------
+def test_brush_selects_every_row_in_the_range(wire, view_study):
+    grid = ResidualGrid(view_study, budget=40, max_panels=50)
+    got = []
+    grid.on_select(got.append)
+    view = grid.panels["var:x"]
+    _brush(wire, view, (-0.5, 1.5), (-1.0, 5.0))
+    data = view_study.data.loc[view_study.rows]
+    resid = view_study.fit.resid
+    expected = data.index[data["x"].between(-0.5, 1.5) & resid.between(-1.0, 5.0)]
+    drawn_rows = set(view_study.rows[view.drawn])
+    assert not set(expected) <= drawn_rows  # the range holds rows that are not drawn as dots
+    assert grid.selection.equals(expected)
+    assert got and got[-1].equals(expected)
+    mask = view_study.rows.isin(expected)
+    for key in grid.order:
+        other = grid.panels[key]
+        if other.highlight is None:
+            continue
+        want = np.flatnonzero(mask[other.drawn])
+        np.testing.assert_array_equal(other.dots.selected, want)
+        assert wire.state(other.dots)["selected"] is not None
+        # selected rows that are not among the dots are drawn on top
+        assert len(other.highlight.x) == len(set(np.flatnonzero(mask)) - set(other.drawn))
+
+
+def test_a_new_brush_clears_the_others(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    a, b = grid.panels["var:x"], grid.panels["fitted"]
+    assert view_study.fit.fitted.between(-100, 100).all()  # so the second brush spans every x
+    _brush(wire, a, (-3, 3), (-1, 1))
+    _brush(wire, b, (-100, 100), (0, 100))
+    assert a.brush.selected_x is None and a.brush.selected_y is None
+    assert wire.state(a.brush)["selected_x"] is None  # the page's rectangle goes too
+    resid = view_study.fit.resid
+    assert grid.selection.equals(view_study.rows[(resid >= 0).to_numpy()])
+
+
+def test_only_the_release_does_the_work(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    got = []
+    grid.on_select(got.append)
+    view = grid.panels["fitted"]
+    wire.from_page(view.brush, state={"brushing": True})
+    wire.from_page(view.brush, state={"selected_x": [-100.0, 100.0], "selected_y": [0.0, 9.0]})
+    assert got == []  # still dragging
+    wire.from_page(view.brush, state={"brushing": False})
+    assert len(got) == 1 and len(got[0]) > 0
+    # a click without a drag clears the selection everywhere
+    wire.from_page(view.brush, state={"brushing": True})
+    wire.from_page(view.brush, state={"selected_x": None, "selected_y": None, "brushing": False})
+    assert len(grid.selection) == 0 and len(got[-1]) == 0
+    assert all(grid.panels[k].dots.selected is None for k in grid.order
+               if grid.panels[k].highlight is not None)
+
+
+def test_brush_on_groups_selects_levels(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    view = grid.panels["group:g"]
+    _brush(wire, view, (0.6, 2.4), (-100, 100))  # codes 1 and 2: "north", "south"
+    data = view_study.data.loc[view_study.rows]
+    assert grid.selection.equals(data.index[data["g"].isin(["north", "south"])])
+
+
+def test_selection_follows_a_refit(wire, view_study):
+    grid = ResidualGrid(view_study, max_panels=50)
+    _brush(wire, grid.panels["var:x"], (0.0, 5.0), (-100, 100))
+    chosen = grid.selection
+    view_study.exclude(chosen[:3], "checked: sensor swapped")
+    grid.refresh()
+    assert grid.selection.equals(chosen[3:])
+    assert len(grid.panels["var:x"].drawn) == len(view_study.rows)
+    assert f"{len(view_study.rows):,} rows" in grid.note.value
