@@ -14,11 +14,16 @@ density cell, plotting positions of the Q-Q panel, the Cook's distance contour c
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
-import bqplot as bq
 import ipywidgets as W
+
+with warnings.catch_warnings():
+    # bqscales (bqplot's scales) sets trait metadata the pre-4.1 traitlets way on import
+    warnings.filterwarnings("ignore", message=r"metadata \{'args'", category=DeprecationWarning)
+    import bqplot as bq
 import numpy as np
 import pandas as pd
 from scipy import stats
@@ -425,7 +430,7 @@ class PanelView:
         self.x_axis = bq.Axis(scale=self.xs, label="", grid_color=PALETTE["grid"],
                               color=PALETTE["axis"], label_color=PALETTE["axis"],
                               tick_style=_TICK_STYLE, label_offset="32px")
-        self.y_axis = bq.Axis(scale=self.ys, orientation="vertical", side="left", label="",
+        self.y_axis = bq.Axis(scale=self.ys, side="left", label="",
                               grid_color=PALETTE["grid"], color=PALETTE["axis"],
                               label_color=PALETTE["axis"], tick_style=_TICK_STYLE,
                               label_offset="-40px")
