@@ -741,15 +741,19 @@ def _harvey_collier(d: _Data, *, alpha: float) -> _Row:
         return _undefined(name, "the recursive residuals do not vary.", note)
     t = math.sqrt(m) * mean / sd
     p = float(2 * stats.t.sf(abs(t), m - 1))
-    along = "row order" if d.perm is None else "time order"
+    if d.perm is None:
+        along = "row order"
+        caveat = (" The rows were taken as they come, so this speaks only to whatever that order "
+                  "follows; pass a time order if there is one.")
+    else:
+        along, caveat = "time order", ""
     if p < alpha:
         reading = (f"The one-step-ahead prediction errors drift to one side along {along} "
-                   f"(Harvey-Collier {_fmt_p(p)}), a sign the straight-line form does not hold "
-                   "across the range; try a curved term, or sort by a suspect variable and look "
-                   "at its residual panel.")
+                   f"(Harvey-Collier {_fmt_p(p)}): a straight-line form may not hold across that "
+                   "ordering; try a curved or trend term for what the rows are sorted by." + caveat)
     else:
         reading = (f"No drift in the one-step-ahead prediction errors along {along} "
-                   f"(Harvey-Collier {_fmt_p(p)}).")
+                   f"(Harvey-Collier {_fmt_p(p)})." + caveat)
     return _Row(name, float(t), str(m - 1), p, reading, note)
 
 

@@ -289,6 +289,21 @@ def test_time_order_agrees_with_statsmodels_on_sorted_rows():
         assert r0.loc[name, "statistic"] == r.loc[name, "statistic"]
 
 
+def test_statistics_do_not_depend_on_units_or_offsets():
+    # every check here depends on the design only through its column space (with an intercept):
+    # rescaling a regressor or moving it far from zero (a calendar year, say) changes nothing
+    X, y = _random_design(15, n=150, p=4)
+    X2 = X.copy()
+    X2[:, 1] = X[:, 1] * 1e-3 + 2024.0
+    X2[:, 2] = X[:, 2] * 1e4 - 5e5
+    r1 = run_checks(fit_ols(X, y), lags=6)
+    r2 = run_checks(fit_ols(X2, y), lags=6)
+    tests = r1.index[~r1.index.str.startswith("VIF")]
+    np.testing.assert_allclose(r2.loc[tests, "statistic"], r1.loc[tests, "statistic"], rtol=1e-8)
+    np.testing.assert_allclose(r2["statistic"].iloc[len(tests):], r1["statistic"].iloc[len(tests):],
+                               rtol=1e-8)
+
+
 def test_harvey_collier_late_start_matches_statsmodels_skip():
     # an indicator that is 0 for the first 30 rows: the first k rows cannot fix its coefficient,
     # so the recursion starts at the first prefix that can (row 31), as statsmodels with skip=31
