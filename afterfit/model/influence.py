@@ -111,22 +111,26 @@ def influence_frame(ls: LeastSquares, index=None) -> pd.DataFrame:
 
     if ok.any():
         s = np.sqrt(ls.sigma2)
-        e = ls.wresid[ok]
-        om = one_minus[ok]
-        hk = h[ok]
-        r = e / (s * np.sqrt(om))
-        student_int[ok] = r
-        cooks[ok] = r * r * hk / (p * om)
-        if df > 1:
-            denom = df - r * r  # >= 0 in exact arithmetic: r_i^2 <= df
-            pos = denom > 0
-            t = np.empty_like(r)
-            t[pos] = r[pos] * np.sqrt((df - 1) / denom[pos])
-            t[~pos] = np.copysign(np.inf, r[~pos])
-            student_ext[ok] = t
-            dffits[ok] = t * np.sqrt(hk / om)
-        else:
-            undefined.append("df_resid is 1: student_ext and dffits are NaN")
+        # whole-array arithmetic (no boolean-index copies of million-row vectors); entries
+        # outside ``ok`` may be 0/0 here and are overwritten with NaN just below
+        with np.errstate(divide="ignore", invalid="ignore"):
+            r = ls.wresid / (s * np.sqrt(one_minus))
+            ratio = h / one_minus
+            cooks = r * r * ratio / p
+            if df > 1:
+                t = r * np.sqrt((df - 1) / (df - r * r))
+                # df - r^2 >= 0 in exact arithmetic; at 0 the rest of the data fit exactly
+                edge = ok & ~(df - r * r > 0)
+                t[edge] = np.copysign(np.inf, r[edge])
+                dffits = t * np.sqrt(ratio)
+                t[~ok] = np.nan
+                dffits[~ok] = np.nan
+                student_ext = t
+            else:
+                undefined.append("df_resid is 1: student_ext and dffits are NaN")
+        r[~ok] = np.nan
+        cooks[~ok] = np.nan
+        student_int = r
 
     lev_cut = 2.0 * p / n
     cook_cut = 4.0 / n
@@ -149,6 +153,7 @@ def influence_frame(ls: LeastSquares, index=None) -> pd.DataFrame:
             **flags,
         },
         index=index,
+        copy=False,  # keep the columns as they are: no consolidation copy of n x 5 floats
     )
     out.attrs["rules"] = {
         "flag_leverage": f"leverage > 2p/n = {lev_cut:.4g} (common practice)",
