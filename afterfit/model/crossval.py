@@ -10,11 +10,12 @@ cross-validation costs one QR of the data plus ``O(k p^3)`` small work, not ten 
 summing Gram blocks, it never squares the condition number of the design.
 
 Rank deficiency of a training set (for example a dummy column that is all zero outside the
-held-out fold) is handled as :func:`afterfit.model.ols.fit_ols` handles it: columns are scaled to
-unit norm over the training rows, a column-pivoted QR picks the estimable columns with the same
-tolerance, and the others are dropped for that fold.  A dropped column contributes nothing to the
-fold's predictions (its coefficient is taken as 0); ``per_fold`` reports the rank and the dropped
-names.
+held-out fold) is handled by the rule :func:`afterfit.model.ols.fit_ols` uses: columns are taken
+in order and one is aliased when what is left of it after projection on the kept earlier columns
+is at most ``max(n, p) * eps`` of its norm (so the later of two collinear columns is dropped).
+An aliased column is dropped for that fold and contributes nothing to the fold's predictions (its
+coefficient is taken as 0, which for a column that is all zero on the training rows is also the
+minimum-norm answer); ``per_fold`` reports the rank and the dropped names.
 """
 from __future__ import annotations
 
@@ -33,6 +34,7 @@ _TILE_ELEMENTS = 65536
 # up to this many folds, predictions come from one matrix product over X
 _GEMM_FOLDS = 64
 _GEMM_LOOKUP = 1 << 16
+_EPS = float(np.finfo(float).eps)
 
 
 @dataclass(frozen=True, eq=False)
@@ -172,9 +174,10 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
     One pass over the rows builds each fold's R factor; training sets are combined from those
     factors (see the module docstring), then each held-out fold is predicted from its training
     coefficients.  A training set that cannot estimate every column (collinear or all-zero
-    columns on its rows) drops the columns a column-pivoted QR finds inestimable, as
-    :func:`~afterfit.model.ols.fit_ols` does; they predict nothing for that fold (coefficient 0,
+    columns on its rows) drops the aliased ones by :func:`~afterfit.model.ols.fit_ols`'s rule
+    (the later of collinear columns goes); they predict nothing for that fold (coefficient 0,
     which equals the minimum-norm answer for a column that is all zero on the training rows).
+    A training set with fewer rows than columns is an error.
     """
     X, y, folds, sw, names = _check_inputs(X, y, folds, weights, names)
     scheme = _check_scheme(scheme)
@@ -246,7 +249,10 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
     if sw is not None:
         we2 *= sw**2
     sse = np.array([we2[rows].sum() for rows in fold_rows[head:]])
-    w_train = (base_w + np.concatenate([[0.0], np.cumsum(tw)[:-1]])) if scheme == "forward" else w_total - tw
+    if scheme == "forward":
+        w_train = base_w + np.concatenate([[0.0], np.cumsum(tw)[:-1]])
+    else:
+        w_train = w_total - tw
     rows = []
     for j, (sol, n_train) in enumerate(sols):
         kept = set(sol.kept.tolist())
@@ -263,6 +269,8 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
         )
     full = _solve_small(prefix[k], n)
     per_fold = pd.DataFrame(rows)
+    for arr in (folds, predictions, params):
+        arr.flags.writeable = False  # results are immutable, like the dataclass holding them
     return CVResult(
         scheme=scheme,
         k=k,
@@ -352,24 +360,41 @@ def _stack_r(a, b):
 
 
 def _solve_small(Rt, n_rows):
-    """Least squares on an augmented R factor, dropping inestimable columns like ``fit_ols``."""
+    """Least squares on an augmented R factor, dropping aliased columns by ``fit_ols``'s rule.
+
+    Columns are taken in their given order; a column is aliased when what is left of it after
+    projection on the kept earlier columns has norm at most ``max(n, p) * eps`` times its own, so
+    the later of two collinear columns is the one dropped.  The triangle is the exact factor of a
+    matrix within rounding of the training rows, so deciding on it is as good as on the rows.
+    """
     A = Rt[:, :-1]
     c = Rt[:, -1]
     p = A.shape[1]
-    norms = np.sqrt((A * A).sum(axis=0))
-    norms[norms == 0] = 1.0
-    Q, R, piv = sla.qr(A / norms, mode="economic", pivoting=True)
-    d = np.abs(np.diag(R))
-    tol = d[0] * max(n_rows, p) * np.finfo(float).eps if d.size else 0.0
-    r = int((d > tol).sum())
-    if r == 0:
-        return _Small(kept=np.array([], dtype=np.intp), coef=np.array([]), rank=0, ssr=float(c @ c))
-    bp = sla.solve_triangular(R[:r, :r], Q[:, :r].T @ c) / norms[piv[:r]]
-    order = np.argsort(piv[:r])
-    kept = piv[:r][order]
-    coef = bp[order]
+    tol = max(n_rows, p) * _EPS
+    basis = np.zeros((A.shape[0], 0))
+    kept = []
+    for j in range(p):
+        col = A[:, j]
+        cn = float(np.linalg.norm(col))
+        if cn == 0:
+            continue
+        col = col / cn
+        # classical Gram-Schmidt twice: orthogonal to working accuracy
+        v = col - basis @ (basis.T @ col)
+        v = v - basis @ (basis.T @ v)
+        vn = float(np.linalg.norm(v))
+        if vn > tol:
+            basis = np.column_stack([basis, v / vn])
+            kept.append(j)
+    kept = np.array(kept, dtype=np.intp)
+    if len(kept) == 0:
+        return _Small(kept=kept, coef=np.zeros(0), rank=0, ssr=float(c @ c))
+    # unit-norm columns keep the small solve as well conditioned as the problem allows
+    norms = np.linalg.norm(A[:, kept], axis=0)
+    Q, R = np.linalg.qr(A[:, kept] / norms)
+    coef = sla.solve_triangular(R, Q.T @ c) / norms
     res = c - A[:, kept] @ coef
-    return _Small(kept=kept, coef=coef, rank=r, ssr=float(res @ res))
+    return _Small(kept=kept, coef=coef, rank=len(kept), ssr=float(res @ res))
 
 
 def _as_count(value, name):
