@@ -18,7 +18,7 @@ from afterfit.model.terms import term_variables
 __all__ = ["RowInspector", "row_table"]
 
 _NBSP = "\u00a0"  # <option> text collapses runs of spaces; non-breaking ones keep the columns
-_WIDTH = 12
+_MIN_WIDTH, _MAX_WIDTH = 6, 24
 # a fixed stylesheet (no data in it): monospaced lists so the columns line up
 _STYLE = (
     "<style>.afterfit-mono select, .afterfit-mono .widget-label, .afterfit-mono label"
@@ -74,16 +74,15 @@ def _is_number(s: pd.Series) -> bool:
     return pd.api.types.is_numeric_dtype(s.dtype) and not pd.api.types.is_bool_dtype(s.dtype)
 
 
-def _fit(text: str, width: int = _WIDTH, *, right: bool = False) -> str:
+def _fit(text: str, width: int, *, right: bool = False) -> str:
     if len(text) > width:
         text = text[: width - 1] + "…"
     text = text.rjust(width) if right else text.ljust(width)
     return text.replace(" ", _NBSP)
 
 
-def _line(cells: list[str], right: list[bool] | None = None) -> str:
-    right = right or [False] * len(cells)
-    return (_NBSP * 2).join(_fit(c, right=r) for c, r in zip(cells, right))
+def _line(cells: list[str], right: list[bool], widths: list[int]) -> str:
+    return (_NBSP * 2).join(_fit(c, w, right=r) for c, r, w in zip(cells, right, widths))
 
 
 class RowInspector(W.VBox):
@@ -113,7 +112,8 @@ class RowInspector(W.VBox):
         self.rows = pd.Index([])
         self.table = pd.DataFrame()
         self.shown = pd.Index([])
-        self.title = W.Label("Row inspector", style={"font_weight": "bold"})
+        self.title = W.Label("Row inspector", style={"font_weight": "bold"},
+                             layout=W.Layout(margin="0 12px 0 0"))
         self.count = W.Label("Brush a panel to list its rows here.")
         self.sort_by = W.Dropdown(options=[("row", "")], value="", description="Sort by",
                                   layout=W.Layout(width="260px"))
@@ -150,7 +150,7 @@ class RowInspector(W.VBox):
         excluded.add_class("afterfit-mono")
         self.children = [
             W.HTML(_STYLE),
-            W.HBox([self.title, self.count], layout=W.Layout(align_items="center", gap="12px")),
+            W.HBox([self.title, self.count], layout=W.Layout(align_items="center")),
             W.HBox([self.sort_by, self.descending]),
             body,
             W.HBox([self.exclude_button]),
@@ -225,10 +225,13 @@ class RowInspector(W.VBox):
         cols = ["row"] + [_DIAGNOSTICS.get(c, str(c)) for c in t.columns]
         # numbers line up on the right, text on the left
         right = [False] + [_is_number(t[c]) for c in t.columns]
-        self.header.value = _line(cols, right) if len(t.columns) else ""
         values = head.to_numpy(dtype=object)
-        opts = [(_line([_cell(lbl)] + [_cell(v) for v in row], right), i)
-                for i, (lbl, row) in enumerate(zip(head.index, values))]
+        texts = [[_cell(lbl)] + [_cell(v) for v in row] for lbl, row in zip(head.index, values)]
+        # each column as wide as its longest text, within limits
+        widths = [min(max([len(h)] + [len(r[j]) for r in texts] + [_MIN_WIDTH]), _MAX_WIDTH)
+                  for j, h in enumerate(cols)]
+        self.header.value = _line(cols, right, widths) if len(t.columns) else ""
+        opts = [(_line(r, right, widths), i) for i, r in enumerate(texts)]
         with self.list.hold_sync():
             self.list.value = ()
             self.list.options = opts
