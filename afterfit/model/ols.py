@@ -636,25 +636,33 @@ def _cholqr2(X, wy_s, sw, names):
     return R, z, col_scale, colmax
 
 
-def _needs_extended(Rs: np.ndarray, bs: np.ndarray, rs_norm: float, ys_norm: float) -> bool:
-    """First-order forward-error estimate of the scaled coefficients; True if any is too large.
+def _relative_error_estimate(Rs: np.ndarray, bs: np.ndarray, rs_norm: float, ys_norm: float,
+                             eps: float) -> np.ndarray:
+    """First-order forward-error estimate of each scaled coefficient, relative to its size.
 
     Backward stability says the computed solution is exact for data perturbed by about
     ``eps * ||X_s||`` and ``eps * ||y_s||``.  To first order that moves coefficient j by
     ``eps * (||e_j' (X'X)^{-1}|| ||X_s|| ||r|| + ||e_j' R^{-1}|| (||X_s|| ||b|| + ||y||))``; the
     first term (residual size times cond^2) is what defeats double precision on problems such as
-    NIST's Wampler4-5 even at moderate condition numbers.
+    NIST's Wampler4-5 even at moderate condition numbers.  Coefficients that are exactly 0 get
+    an infinite relative estimate.
     """
     r = Rs.shape[0]
-    Ri = sla.solve_triangular(Rs, np.eye(r))
+    Ri = sla.solve_triangular(np.asarray(Rs, dtype=float), np.eye(r))
     V = Ri @ Ri.T
     xnorm = np.sqrt(r)  # scaled columns have norms below 1
     row_V = np.sqrt((V * V).sum(axis=1))
     row_Ri = np.sqrt((Ri * Ri).sum(axis=1))
-    est = _EPS * (row_V * xnorm * rs_norm + row_Ri * (xnorm * np.sqrt(bs @ bs) + ys_norm))
+    bs = np.asarray(bs, dtype=float)
+    est = eps * (row_V * xnorm * rs_norm + row_Ri * (xnorm * np.sqrt(bs @ bs) + ys_norm))
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = est / np.abs(bs)
-    return bool(np.any(~(rel <= REL_ERR_EXTENDED)))
+    return np.where(np.isnan(rel), np.inf, rel)
+
+
+def _needs_extended(Rs, bs, rs_norm, ys_norm) -> bool:
+    """True when some coefficient may have fewer than ~10 correct digits in double precision."""
+    return bool(np.any(_relative_error_estimate(Rs, bs, rs_norm, ys_norm, _EPS) > REL_ERR_EXTENDED))
 
 
 # --------------------------------------------------------------------------------------------
@@ -693,20 +701,21 @@ def _dot2_cols(A: np.ndarray, r: np.ndarray):
     return hi, err
 
 
-def _refine_ld(src, y, weights, kept, sk, dy, Rl, bs, cond):
+def _refine_ld(src, y, weights, kept, sk, dy, Rl, bs, cond, refine):
     """Residuals in longdouble and, when it contracts, iterative refinement of the solution.
 
     Each step solves ``R'R db = X_s' r_s`` with ``X_s' r_s`` accumulated in compensated
     arithmetic, so the cond^2 * ||r|| error term of a large-residual problem (NIST Wampler4-5)
-    shrinks by a factor of about ``eps_ld * cond^2``; steps are taken only while that factor is
-    small and the correction keeps shrinking.  Returns the scaled coefficients and the
+    shrinks by a factor of about ``eps_ld * cond^2``.  Steps are taken only when asked
+    (``refine``: the longdouble error estimate is above ~1e-16), while that factor is small, and
+    while the correction keeps shrinking.  Returns the scaled coefficients and the
     unweighted residuals (longdouble).
     """
     n = src.shape[0]
     skl = sk.astype(_LD)
     dyl = _LD(dy)
     sw = None if weights is None else np.sqrt(weights.astype(_LD))
-    refine = _EPS_LD * cond * cond < 1e-3 and _EPS_LD < _EPS
+    refine = refine and _EPS_LD * cond * cond < 1e-3 and _EPS_LD < _EPS
     prev = None
     for _ in range(4):
         b = bs * dyl / skl
@@ -854,7 +863,10 @@ def fit_ols(X, y, *, weights=None, names=None, X_ext=None, method="auto") -> Lea
         R_ext, zl = _positive_diag(T[:r, :r], T[:r, r])
         R = R_ext.astype(float)
         cond = _cond(R)
-        bsl, resid_l = _refine_ld(src, y, weights, kept, sk, dy, R_ext, _back_ld(R_ext, zl), cond)
+        bsl = _back_ld(R_ext, zl)
+        refine = bool(np.any(_relative_error_estimate(
+            R, bsl, float(np.linalg.norm(wres_s)), float(np.linalg.norm(wy_s)), _EPS_LD) > 1e-16))
+        bsl, resid_l = _refine_ld(src, y, weights, kept, sk, dy, R_ext, bsl, cond, refine)
         b = (bsl * _LD(dy) / sk.astype(_LD)).astype(float)
         resid = resid_l.astype(float)
         fitted = (y.astype(_LD) - resid_l).astype(float)

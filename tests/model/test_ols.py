@@ -372,6 +372,48 @@ def test_non_finite_input_is_a_clear_error(where, bad):
         fit_ols(X, y, weights=w, names=["const", "a", "b"])
 
 
+@settings(max_examples=30, deadline=None)
+@given(n=st.integers(4, 40), p=st.integers(1, 4), data=st.data(),
+       bad=st.sampled_from([np.nan, np.inf, -np.inf]))
+def test_non_finite_anywhere_in_x_is_reported_with_its_row_and_column(n, p, data, bad):
+    # Source: product rule (property-based: any position, any non-finite value)
+    X = np.random.default_rng(n * 10 + p).normal(size=(n, p))
+    i = data.draw(st.integers(0, n - 1), label="row")
+    j = data.draw(st.integers(0, p - 1), label="column")
+    X[i, j] = bad
+    names = [f"c{k}" for k in range(p)]
+    with pytest.raises(ValueError, match=rf"X has 1 row\(s\).*\['c{j}'\].*positions {i}\)"):
+        fit_ols(X, np.ones(n), names=names)
+
+
+@settings(max_examples=30, deadline=None)
+@given(seed=st.integers(0, 10**6), src=st.integers(0, 3), at=st.integers(0, 4),
+       kind=st.sampled_from(["duplicate", "constant", "zero", "multiple"]))
+def test_redundant_columns_are_aliased_and_the_rest_unchanged(seed, src, at, kind):
+    # Source: statsmodels OLS on the design without the redundant column (property-based:
+    # redundant column of several kinds inserted at any position)
+    X, y, _ = _random_problem(seed % 997, n=30, p=4)
+    extra = {"duplicate": X[:, src], "constant": np.full(30, 2.5), "zero": np.zeros(30),
+             "multiple": -3.0 * X[:, src]}[kind]
+    Xe = np.insert(X, at, extra, axis=1)
+    names = [f"c{k}" for k in range(5)]
+    ls = fit_ols(Xe, y, names=names)
+    assert ls.rank == 4 and len(ls.aliased) == 1
+    drop = names.index(ls.aliased[0])
+    if kind == "zero":
+        assert drop == at
+    else:
+        # the later of the two collinear columns is dropped (the intercept, col 0, stays first)
+        orig = 0 if kind == "constant" else src  # the column it repeats, before insertion
+        partner = orig if orig < at else orig + 1
+        assert drop == max(at, partner)
+    keep = [k for k in range(5) if k != drop]
+    res = sm.OLS(y, Xe[:, keep]).fit()
+    assert _rel(ls.params[keep], res.params) < 1e-9
+    assert _rel(ls.bse()[keep], res.bse) < 1e-9
+    assert np.isnan(ls.params[drop])
+
+
 def test_non_finite_error_names_the_column_on_the_tall_path():
     # Source: product rule; the tall path checks finiteness through the Gram matrix
     rng = np.random.default_rng(0)
