@@ -166,17 +166,20 @@ function render({ model, el }) {
         s(doc, "line", { class: "afterfit-whisker", x1: x(now.rmse_cv - now.rmse_cv_se), x2: x(now.rmse_cv + now.rmse_cv_se), y1: y, y2: y }),
       );
     }
+    // labels sit on the outer side of each mark, so they never overlap when the gap is small
+    const cvRight = !(finite(now.rmse_train) && finite(now.rmse_cv)) || now.rmse_cv >= now.rmse_train;
     if (finite(now.rmse_train)) {
+      const cx = x(now.rmse_train);
       svg.append(
-        s(doc, "circle", { class: "afterfit-dot-train", cx: x(now.rmse_train), cy: y, r: 5 }, s(doc, "title", { text: `training RMSE ${fmt(now.rmse_train)}` })),
-        s(doc, "text", { class: "afterfit-dot-label", x: x(now.rmse_train), y: y - 9, "text-anchor": "middle", text: "train" }),
+        s(doc, "circle", { class: "afterfit-dot-train", cx, cy: y, r: 5 }, s(doc, "title", { text: `training RMSE ${fmt(now.rmse_train)}` })),
+        s(doc, "text", { class: "afterfit-dot-label", x: cvRight ? cx - 8 : cx + 8, y: y + 3, "text-anchor": cvRight ? "end" : "start", text: "train" }),
       );
     }
     if (finite(now.rmse_cv)) {
       const cx = x(now.rmse_cv);
       svg.append(
         s(doc, "rect", { class: "afterfit-dot-cv", x: cx - 5, y: y - 5, width: 10, height: 10, transform: `rotate(45 ${cx} ${y})` }, s(doc, "title", { text: `cross-validated RMSE ${fmt(now.rmse_cv)}` })),
-        s(doc, "text", { class: "afterfit-dot-label", x: cx, y: y - 9, "text-anchor": "middle", text: "CV" }),
+        s(doc, "text", { class: "afterfit-dot-label", x: cvRight ? cx + 9 : cx - 9, y: y + 3, "text-anchor": cvRight ? "start" : "end", text: "CV" }),
       );
     }
     return svg;
@@ -260,7 +263,7 @@ function render({ model, el }) {
     const all = rows();
     const error = String(model.get("error") || "");
     const parts = [];
-    const head = h(doc, "div", { class: "afterfit-meter-head" }, h(doc, "span", { class: "afterfit-zone-title", text: "Fit meter" }));
+    const head = h(doc, "div", { class: "afterfit-zone-head afterfit-meter-head" }, h(doc, "span", { class: "afterfit-zone-title", text: "Fit meter" }));
     parts.push(head);
     if (!all.length) {
       parts.push(h(doc, "p", { class: "afterfit-empty", text: "No fitted steps yet." }));

@@ -40,6 +40,10 @@ test("the dumbbell has a training dot, a CV mark, a whisker of one SE and the ga
   assert.ok(Number(whisker.getAttribute("x2")) > Number(whisker.getAttribute("x1")));
   assert.ok(Number(gap.getAttribute("x2")) > Number(gap.getAttribute("x1")), "CV error above training error lies to the right");
   assert.match(bell.getAttribute("aria-label"), /Training RMSE 1\.15, cross-validated RMSE 1\.32/);
+  // labels sit outside the pair, so a small gap never makes them collide
+  const [train, cv] = bell.querySelectorAll(".afterfit-dot-label");
+  assert.deepEqual([train.textContent, train.getAttribute("text-anchor")], ["train", "end"]);
+  assert.deepEqual([cv.textContent, cv.getAttribute("text-anchor")], ["CV", "start"]);
 });
 
 test("the history draws two lines, marks the worse step and the one-SE pick, and the current step", () => {
