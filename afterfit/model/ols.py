@@ -3,7 +3,8 @@
 How a fit is computed
 ---------------------
 1. Validation: ``X`` 2-D and finite, ``y`` finite, ``weights`` finite and >= 0, at least as many
-   (positively weighted) rows as columns.  Bad input raises ``ValueError`` saying what to do.
+   (positively weighted) rows as columns, unique names.  Bad input raises ``ValueError`` saying
+   what to do.
 2. Scaling: every whitened column ``sqrt(w) * X[:, j]`` and the whitened response are divided by a
    power of two close to their norm.  Powers of two are exact in binary floating point, so the
    scaling changes no digit of the data; it only makes rank decisions and condition numbers
@@ -26,9 +27,15 @@ How a fit is computed
        first-order error estimate says a coefficient may carry fewer than about 10 correct
        digits (see :func:`_needs_extended`).  If the caller can supply the design evaluated in
        extended precision (``X_ext``; e.g. polynomial columns ``x**k`` computed in longdouble),
-       the extended path uses it, which removes the rounding of the columns themselves.  On
-       platforms where ``longdouble`` is plain double the path still runs and is then only as
-       accurate as ``"householder"``.
+       the extended path uses it, which removes the rounding of the columns themselves.  When
+       the estimate blames large residuals (cond^2 * ||r||), one to three steps of iterative
+       refinement follow, with ``X' r`` accumulated in compensated (about double-longdouble)
+       arithmetic.  On platforms where ``longdouble`` is plain double the path still runs and
+       is then only as accurate as ``"householder"``.
+
+Memory: every path works on row blocks, so besides ``X`` itself a fit allocates a few vectors of
+length n (``fitted``, ``resid``) and block-sized scratch.  ``X`` is kept by reference (no copy):
+do not modify it while the fit is in use (``leverage()`` and the HC covariances read it lazily).
 
 Rank deficiency is never an error: a column that is (to rounding) a linear combination of the
 kept columns before it is reported in ``aliased`` and gets a NaN coefficient; the later of two
@@ -795,7 +802,7 @@ def fit_ols(X, y, *, weights=None, names=None, X_ext=None, method="auto") -> Lea
     X_ext : array_like (n, p) of longdouble, optional
         The same design evaluated in extended precision (e.g. powers ``x**k`` computed in
         ``numpy.longdouble``).  Used only if the extended-precision path runs; it must agree
-        with ``X`` to rounding.
+        with ``X`` to rounding.  A longdouble ``X`` given without ``X_ext`` serves as both.
     method : {"auto", "householder", "cholqr2", "extended"}
         Force a path (mainly for tests and benchmarks).  ``"cholqr2"`` still falls back to
         ``"householder"`` when it would be inaccurate; the result's ``method`` says what ran.
@@ -813,6 +820,8 @@ def fit_ols(X, y, *, weights=None, names=None, X_ext=None, method="auto") -> Lea
     """
     if method not in _METHODS:
         raise ValueError(f"method must be one of {', '.join(_METHODS)}; got {method!r}")
+    if X_ext is None and getattr(X, "dtype", None) == _LD and _LD is not np.float64:
+        X_ext = X
     X, y, weights, names, X_ext, n_pos = _validate(X, y, weights, names, X_ext)
     n, p = X.shape
     sw = None if weights is None else np.sqrt(weights)
