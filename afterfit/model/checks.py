@@ -123,7 +123,7 @@ def run_checks(
         columns (e.g. indicators for every group).  It decides whether RESET may centre the
         fitted values and whether VIF is centred.  ``True`` for a design whose columns cannot
         reproduce a constant is an error.
-    order : array-like of length ``ls.nobs``, optional
+    order : array-like, one value per row of ``ls.X``, optional
         Values to sort the rows by (e.g. the time column; numbers or datetimes), used by
         Durbin-Watson, Ljung-Box and Harvey-Collier.  Ties keep row order.  To pass a
         permutation ``perm`` (rows in the order ``perm[0], perm[1], ...``) pass
@@ -176,9 +176,10 @@ def run_checks(
       rows.  The recursion starts from the first ``k`` rows in order, as R ``recresid`` does;
       if those rows cannot determine all coefficients it starts from the shortest prefix that
       can, and says so in ``note``.  It runs on all rows at any n.
-    * An exact fit (residual norm below ``max(1e-10, 100 eps cond)`` times the norm of the
-      centred, or without intercept uncentred, whitened response) leaves nothing to test:
-      every test row is NaN with a reading saying so.
+    * An exact fit leaves nothing to test: every test row is NaN with a reading saying so.  A
+      fit counts as exact when ``ls.exact_fit`` says so, or when the residual norm is below
+      ``max(1e-10, 100 eps cond)`` times the norm of the centred (without intercept, uncentred)
+      whitened response.
     """
     if not isinstance(ls, LeastSquares):
         raise TypeError(f"run_checks needs a LeastSquares from fit_ols, got {type(ls).__name__}")
@@ -252,7 +253,7 @@ def vif(ls: LeastSquares, *, has_const: bool = True) -> pd.Series:
 
 
 def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
-    n_all = int(ls.nobs)
+    n_all = int(ls.X.shape[0])  # every row, zero-weight ones too (ls.nobs counts w > 0)
     kept = np.asarray(ls.kept, dtype=int)
     mask = None
     notes = []
@@ -307,7 +308,10 @@ def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
     e_norm = math.sqrt(_dot(e, e))
     cond = float(ls.cond) if np.isfinite(ls.cond) else 1e16
     tol = max(1e-10, 100 * np.finfo(float).eps * cond)
-    exact = (not e_norm > tol * ref_norm) or ls.df_resid <= 0
+    # the kernel's own verdict (relative to the uncentred response) or ours (relative to the
+    # response's variation, scaled by the conditioning): either means nothing is left to test
+    exact = ((not e_norm > tol * ref_norm) or ls.df_resid <= 0
+             or bool(getattr(ls, "exact_fit", False)))
 
     perm, order_note = _order(order, n_all, mask)
     names = tuple(ls.names[i] for i in kept)
@@ -426,7 +430,7 @@ def _fmt_p(p: float) -> str:
 def _fmt(x: float) -> str:
     if not np.isfinite(x):
         return "inf" if x > 0 else "nan"
-    return f"{x:.3g}" if abs(x) < 1e4 else f"{x:,.0f}"
+    return f"{x:.2f}" if abs(x) < 100 else f"{x:,.0f}"
 
 
 def _join(*parts: str) -> str:
@@ -606,7 +610,7 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
         note = "" if nm == names[0] else "assumes normal errors; the Koenker form does not"
         rows.append(_Row(nm, float(stat), str(r_bp), p, reading, note))
     ncols_aux = ncol - 1
-    note = f"{ncols_aux} auxiliary columns from {m} regressors"
+    note = f"{ncols_aux} auxiliary columns from {m} regressor{'s' if m > 1 else ''}"
     if r_w < ncols_aux:
         note += f", {ncols_aux - r_w} dropped as duplicates of others"
     if n - r_w - 1 < 1:
