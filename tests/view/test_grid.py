@@ -1,8 +1,8 @@
 """Residual grid on a recording comm: panels, ranking, pin/hide, sampling, brushing, reference lines.
 
 Reference values: statsmodels (OLS fit, ``OLSInfluence`` Cook's distance, ``ProbPlot`` plotting
-positions) and numpy (``histogram2d`` counts).  The frames are the invented, seeded ones of the
-shared ``view_study`` fixture; no statistic is checked against invented numbers.
+positions) and numpy (``histogram2d`` counts).  The data are the invented, seeded demo scenarios
+(orchard, cold store); no statistic is checked against invented numbers.
 """
 from __future__ import annotations
 
@@ -20,12 +20,16 @@ from afterfit.view.grid import ResidualGrid
 from afterfit.view.sampling import choose_points, density
 
 HOSTILE = "<img src=x onerror=alert(1)>"
+LEVELS = ["Bellisk", "Duskmere", "Orvelle", "Quintara"]  # the orchard's cultivars, sorted
 
 
-def _timed(study: Study) -> Study:
-    """The same invented rows with a time order declared (for the autocorrelation panel)."""
-    df = study.data.assign(t=np.arange(len(study.data), dtype=float))
-    return Study(df, "y ~ x + C(g)", time="t")
+@pytest.fixture
+def study():
+    """The invented orchard scenario; the soil column carries a name that is hostile in HTML."""
+    from afterfit import demo
+
+    df = demo.orchard(seed=0).rename(columns={"soil_n": HOSTILE})
+    return Study(df, df.attrs["first_formula"], groups=["block"])
 
 
 def _brush(wire, view, x, y):
@@ -36,30 +40,39 @@ def _brush(wire, view, x, y):
 
 
 # -- panels and layout -------------------------------------------------------------------------
-def test_every_question_has_a_panel(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
+def test_every_question_has_a_panel(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
     titles = [grid.panels[k].figure.title for k in grid.order]
-    assert sorted(titles) == sorted([
-        "Residual by fitted value", "Residual by x", f"Residual by {HOSTILE}", "Residual by g",
-        "Quantile check (studentized)", "Spread by fitted value",
-        "Influence map (leverage × studentized, Cook contours)", "Partial residual: x",
-    ])
+    variables = ["block", "row", "tree", "cultivar", "irrigation_mm", "tree_age", HOSTILE, "note"]
+    assert sorted(titles) == sorted(
+        ["Residual by fitted value"] + [f"Residual by {v}" for v in variables]
+        + ["Quantile check (studentized)", "Spread by fitted value",
+           "Influence map (leverage × studentized, Cook contours)",
+           "Partial residual: irrigation_mm", "Partial residual: tree_age"])
+    # numeric columns get scatter panels, text columns strip panels by level
+    assert {k for k in grid.order if k.startswith("group:")} == {
+        "group:block", "group:cultivar", "group:note"}
     # the page receives the titles as SVG text (bqplot sets them with d3 .text())
     assert wire.state(grid.panels["fitted"].figure)["title"] == "Residual by fitted value"
     # the categorical panel labels its levels, sorted as patsy sorts them
-    ax = grid.panels["group:g"].x_axis
-    assert [ax.tick_labels[str(int(t))] for t in ax.tick_values] == ["east", "north", "south"]
+    ax = grid.panels["group:cultivar"].x_axis
+    assert [ax.tick_labels[str(int(t))] for t in ax.tick_values] == LEVELS
+    note = grid.panels["group:note"].data  # missing values are a level of their own
+    assert note.levels[-1] == "(missing)"
     # every panel of rows draws dots, a smoother where the Study gives one, reference lines
     fitted = grid.panels["fitted"]
     assert fitted.smooth.visible and fitted.band.visible and fitted.guides.visible
-    sm = view_study.binned_means("fitted")
+    sm = study.binned_means("fitted")
     np.testing.assert_allclose(np.ravel(fitted.smooth.y), sm["mean"])  # the Study's numbers
 
 
-def test_memory_panel_only_with_time(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
+def test_memory_panel_only_with_time(wire, study):
+    from afterfit import demo
+
+    grid = ResidualGrid(study, max_panels=50)
     assert "memory" not in grid.titles
-    timed = _timed(view_study)
+    df = demo.cold_store(seed=0)
+    timed = Study(df, df.attrs["first_formula"], time="month", period=1)
     grid = ResidualGrid(timed, max_panels=50)
     view = grid.panels["memory"]
     assert view.figure.title == "Residual memory (autocorrelation by lag)"
@@ -67,13 +80,15 @@ def test_memory_panel_only_with_time(wire, view_study):
     assert view.brush is None  # bars are lags, not rows: nothing to brush
 
 
-def test_panels_are_ranked_worst_first(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
-    scores = view_study.pattern_scores()
-    checks = view_study.checks()
-    expected_p = {"fitted": scores.loc["fitted", "pvalue"], "var:x": scores.loc["x", "pvalue"],
+def test_panels_are_ranked_worst_first(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    scores = study.pattern_scores()
+    checks = study.checks()
+    expected_p = {"fitted": scores.loc["fitted", "pvalue"],
+                  "var:tree_age": scores.loc["tree_age", "pvalue"],
                   f"var:{HOSTILE}": scores.loc[HOSTILE, "pvalue"],
-                  "group:g": scores.loc["g", "pvalue"], "partial:x": scores.loc["x", "pvalue"],
+                  "group:cultivar": scores.loc["cultivar", "pvalue"],
+                  "partial:tree_age": scores.loc["tree_age", "pvalue"],
                   "qq": checks.loc["Jarque-Bera", "pvalue"],
                   "spread": checks.loc["Breusch-Pagan (Koenker)", "pvalue"]}
     for key, p in expected_p.items():
@@ -81,17 +96,18 @@ def test_panels_are_ranked_worst_first(wire, view_study):
     ranked = [k for k in grid.order if np.isfinite(grid.scores[k].pvalue)]
     ps = [grid.scores[k].pvalue for k in ranked]
     assert ps == sorted(ps)
-    # y bends in x, so the residual-by-x panel ranks above the hostile noise column
-    assert grid.order.index("var:x") < grid.order.index(f"var:{HOSTILE}")
+    # yield bends in tree age (planted), so that panel ranks above the soil column's
+    assert grid.order.index("var:tree_age") < grid.order.index(f"var:{HOSTILE}")
     # panels without a p-value (the influence map, with no Cook's D >= 1) come after
     assert grid.order[-1] == "influence"
     # the subtitle shows the score the panel is ranked by
-    assert "p " in grid.panels["var:x"].subtitle.value
-    assert grid.panels["var:x"].subtitle.value.startswith("pattern score (η²)")
+    assert "p " in grid.panels["var:tree_age"].subtitle.value
+    assert grid.panels["var:tree_age"].subtitle.value.startswith("pattern score (η²)")
+    assert grid.panels["qq"].subtitle.value.startswith("Jarque-Bera")
 
 
-def test_pin_and_hide_from_the_page(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
+def test_pin_and_hide_from_the_page(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
     last = grid.order[-1]
     wire.from_page(grid.panels[last].pin, state={"value": True})
     assert grid.order[0] == last and grid.pinned == [last]
@@ -106,7 +122,7 @@ def test_pin_and_hide_from_the_page(wire, view_study):
     assert grid.hidden_pick.options == ((grid.titles[victim], victim),)
     assert grid.hidden_bar.layout.display is None
     # pins and hidden panels survive a refit
-    view_study.add("I(x ** 2)")
+    study.add("I(tree_age ** 2)", reason="age curve")
     grid.refresh()
     assert grid.order[0] == last and victim not in grid.order
     grid.hidden_pick.value = victim
@@ -117,18 +133,21 @@ def test_pin_and_hide_from_the_page(wire, view_study):
     assert grid.pinned == []
 
 
-def test_more_panels_button(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=3)
+def test_more_panels_button(wire, study):
+    grid = ResidualGrid(study, max_panels=3)
     assert len(grid.order) == 3 and len(grid.panels) == 3  # panels off screen are not built
+    grid.more.click()
+    assert len(grid.order) == 3 + 6  # six more per click
+    assert grid.more.description == f"Show 5 more panel(s) of {len(grid.titles) - 9}"
     grid.more.click()
     assert len(grid.order) == len(grid.titles)
     assert grid.more.layout.display == "none"
 
 
 # -- what is drawn -----------------------------------------------------------------------------
-def test_dots_are_binary_buffers_on_fixed_scales(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
-    view = grid.panels["var:x"]
+def test_dots_are_binary_buffers_on_fixed_scales(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    view = grid.panels["var:irrigation_mm"]
     opening = [m for m in wire.log(view.dots) if m.msg_type == "comm_open"][0]
     updates = [m for m in wire.log(view.dots) if m.method == "update" and "x" in m.data["state"]]
     assert updates, "the dots' coordinates were sent"
@@ -140,16 +159,16 @@ def test_dots_are_binary_buffers_on_fixed_scales(wire, view_study):
     assert total == 2 * 8 * len(view.drawn)
     json.dumps(opening.data)  # the JSON part is plain JSON
     # scales are fixed from all the data (not computed by the browser)
-    x = view_study.data.loc[view_study.rows, "x"]
+    x = study.data.loc[study.rows, "irrigation_mm"]
     assert view.xs.min < x.min() and view.xs.max > x.max()
-    r = view_study.fit.resid
+    r = study.fit.resid
     assert view.ys.min < r.min() and view.ys.max > r.max()
     state = wire.state(view.xs)
     assert state["min"] == view.xs.min and state["max"] == view.xs.max
 
 
-def test_sample_keeps_extremes_and_is_seeded(view_study):
-    infl = view_study.influence
+def test_sample_keeps_extremes_and_is_seeded(study):
+    infl = study.influence
     drawn = choose_points(infl, budget=40, seed=3)
     assert len(drawn.positions) == 40 and not drawn.complete
     assert drawn.n_kept == 16
@@ -167,7 +186,7 @@ def test_sample_keeps_extremes_and_is_seeded(view_study):
         choose_points(infl, budget=0)
 
 
-def test_density_counts_match_numpy(view_study):
+def test_density_counts_match_numpy(study):
     rng = np.random.default_rng(7)
     x, y = rng.normal(size=5000), rng.normal(size=5000)
     x[:3] = np.nan
@@ -181,23 +200,23 @@ def test_density_counts_match_numpy(view_study):
         density(x, y, x_range=(1, 1), y_range=(0, 1))
 
 
-def test_density_layer_when_sampled(wire, view_study):
-    grid = ResidualGrid(view_study, budget=40, max_panels=50)
-    view = grid.panels["var:x"]
+def test_density_layer_when_sampled(wire, study):
+    grid = ResidualGrid(study, budget=40, max_panels=50)
+    view = grid.panels["var:irrigation_mm"]
     assert len(view.drawn) == 40
     assert view.density.visible
     assert view.density.color.dtype == np.float32
-    n = len(view_study.rows)
+    n = len(study.rows)
     assert round(float((view.density.color.astype(float) ** 2).sum())) == n  # every row counted
     assert "each panel draws 40" in grid.note.value
-    small = ResidualGrid(view_study, max_panels=50)
-    assert not small.panels["var:x"].density.visible
+    small = ResidualGrid(study, max_panels=50)
+    assert not small.panels["var:irrigation_mm"].density.visible
 
 
-def test_qq_positions_match_statsmodels(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
+def test_qq_positions_match_statsmodels(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
     data = grid.panels["qq"].data
-    y = view_study.influence["student_ext"].to_numpy()
+    y = study.influence["student_ext"].to_numpy()
     np.testing.assert_allclose(data.y, y)
     # statsmodels ProbPlot with a=0.375 uses Blom's positions (i - 0.375) / (n + 0.25)
     ref = ProbPlot(y, a=0.375).theoretical_quantiles
@@ -205,22 +224,24 @@ def test_qq_positions_match_statsmodels(wire, view_study):
     assert np.array_equal(np.argsort(data.x), np.argsort(y, kind="stable"))
 
 
-def test_partial_residuals_match_statsmodels(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
-    data = grid.panels["partial:x"].data
-    res = smf.ols("y ~ x", view_study.data).fit()  # statsmodels as the reference
-    np.testing.assert_allclose(data.y, res.resid + res.params["x"] * view_study.data["x"],
-                               rtol=1e-9, atol=1e-12)
+def test_partial_residuals_match_statsmodels(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    res = smf.ols(study.formula, study.data).fit()  # statsmodels as the reference
+    for term in ("irrigation_mm", "tree_age"):
+        data = grid.panels[f"partial:{term}"].data
+        np.testing.assert_allclose(data.y, res.resid + res.params[term] * study.data[term],
+                                   rtol=1e-9, atol=1e-9)
 
 
-def test_cook_contours_separate_rows_as_statsmodels_does(wire, view_study):
+def test_cook_contours_separate_rows_as_statsmodels_does(wire, study):
     # one planted far, off-line row, so some Cook's distances pass the contour levels
-    df = view_study.data.copy()
-    df.loc[len(df)] = {"x": 6.0, HOSTILE: 0.0, "g": "east", "y": -20.0}
-    study = Study(df, "y ~ x")
+    df = study.data.copy()
+    df.loc[len(df)] = {**df.iloc[0].to_dict(), "irrigation_mm": 1500.0, "yield_kg": 0.0}
+    study = Study(df, df.attrs["first_formula"])
     grid = ResidualGrid(study, max_panels=50)
     view = grid.panels["influence"]
-    cooks = OLSInfluence(smf.ols("y ~ x", df).fit()).cooks_distance[0]  # statsmodels reference
+    fit = smf.ols(df.attrs["first_formula"], df).fit()
+    cooks = OLSInfluence(fit).cooks_distance[0].to_numpy()  # statsmodels reference
     h = study.influence["leverage"].to_numpy()
     r = study.influence["student_int"].to_numpy()
     gx, gy = view.guides.x, view.guides.y
@@ -235,20 +256,21 @@ def test_cook_contours_separate_rows_as_statsmodels_does(wire, view_study):
 
 
 # -- brushing ------------------------------------------------------------------------------------
-def test_brush_selects_every_row_in_the_range(wire, view_study):
-    grid = ResidualGrid(view_study, budget=40, max_panels=50)
+def test_brush_selects_every_row_in_the_range(wire, study):
+    grid = ResidualGrid(study, budget=40, max_panels=50)
     got = []
     grid.on_select(got.append)
-    view = grid.panels["var:x"]
-    _brush(wire, view, (-0.5, 1.5), (-1.0, 5.0))
-    data = view_study.data.loc[view_study.rows]
-    resid = view_study.fit.resid
-    expected = data.index[data["x"].between(-0.5, 1.5) & resid.between(-1.0, 5.0)]
-    drawn_rows = set(view_study.rows[view.drawn])
+    view = grid.panels["var:irrigation_mm"]
+    lo, hi = study.data["irrigation_mm"].quantile([0.2, 0.7])
+    _brush(wire, view, (lo, hi), (-1.0, 5.0))
+    data = study.data.loc[study.rows]
+    resid = study.fit.resid
+    expected = data.index[data["irrigation_mm"].between(lo, hi) & resid.between(-1.0, 5.0)]
+    drawn_rows = set(study.rows[view.drawn])
     assert not set(expected) <= drawn_rows  # the range holds rows that are not drawn as dots
     assert grid.selection.equals(expected)
     assert got and got[-1].equals(expected)
-    mask = view_study.rows.isin(expected)
+    mask = study.rows.isin(expected)
     for key in grid.order:
         other = grid.panels[key]
         if other.highlight is None:
@@ -260,25 +282,25 @@ def test_brush_selects_every_row_in_the_range(wire, view_study):
         assert len(other.highlight.x) == len(set(np.flatnonzero(mask)) - set(other.drawn))
 
 
-def test_a_new_brush_clears_the_others(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
-    a, b = grid.panels["var:x"], grid.panels["fitted"]
-    assert view_study.fit.fitted.between(-100, 100).all()  # so the second brush spans every x
-    _brush(wire, a, (-3, 3), (-1, 1))
-    _brush(wire, b, (-100, 100), (0, 100))
+def test_a_new_brush_clears_the_others(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    a, b = grid.panels["var:tree_age"], grid.panels["fitted"]
+    assert study.fit.fitted.between(-1e3, 1e3).all()  # so the second brush spans every x
+    _brush(wire, a, (0, 100), (-1, 1))
+    _brush(wire, b, (-1e3, 1e3), (0, 100))
     assert a.brush.selected_x is None and a.brush.selected_y is None
     assert wire.state(a.brush)["selected_x"] is None  # the page's rectangle goes too
-    resid = view_study.fit.resid
-    assert grid.selection.equals(view_study.rows[(resid >= 0).to_numpy()])
+    resid = study.fit.resid
+    assert grid.selection.equals(study.rows[(resid >= 0).to_numpy()])
 
 
-def test_only_the_release_does_the_work(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
+def test_only_the_release_does_the_work(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
     got = []
     grid.on_select(got.append)
     view = grid.panels["fitted"]
     wire.from_page(view.brush, state={"brushing": True})
-    wire.from_page(view.brush, state={"selected_x": [-100.0, 100.0], "selected_y": [0.0, 9.0]})
+    wire.from_page(view.brush, state={"selected_x": [-1e3, 1e3], "selected_y": [0.0, 9.0]})
     assert got == []  # still dragging
     wire.from_page(view.brush, state={"brushing": False})
     assert len(got) == 1 and len(got[0]) > 0
@@ -290,20 +312,20 @@ def test_only_the_release_does_the_work(wire, view_study):
                if grid.panels[k].highlight is not None)
 
 
-def test_brush_on_groups_selects_levels(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
-    view = grid.panels["group:g"]
-    _brush(wire, view, (0.6, 2.4), (-100, 100))  # codes 1 and 2: "north", "south"
-    data = view_study.data.loc[view_study.rows]
-    assert grid.selection.equals(data.index[data["g"].isin(["north", "south"])])
+def test_brush_on_groups_selects_levels(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    view = grid.panels["group:cultivar"]
+    _brush(wire, view, (0.6, 2.4), (-100, 100))  # codes 1 and 2
+    data = study.data.loc[study.rows]
+    assert grid.selection.equals(data.index[data["cultivar"].isin(LEVELS[1:3])])
 
 
-def test_selection_follows_a_refit(wire, view_study):
-    grid = ResidualGrid(view_study, max_panels=50)
-    _brush(wire, grid.panels["var:x"], (0.0, 5.0), (-100, 100))
+def test_selection_follows_a_refit(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    _brush(wire, grid.panels["var:tree_age"], (10, 100), (-100, 100))
     chosen = grid.selection
-    view_study.exclude(chosen[:3], "checked: sensor swapped")
+    study.exclude(chosen[:3], "checked: sensor swapped")
     grid.refresh()
     assert grid.selection.equals(chosen[3:])
-    assert len(grid.panels["var:x"].drawn) == len(view_study.rows)
-    assert f"{len(view_study.rows):,} rows" in grid.note.value
+    assert len(grid.panels["var:tree_age"].drawn) == len(study.rows)
+    assert f"{len(study.rows):,} rows" in grid.note.value
