@@ -132,11 +132,9 @@ HOSTILE = "<img src=x onerror=alert(1)>"
 
 @pytest.fixture
 def view_study():
-    """A real Study with stated, evident and speculative candidates, for wiring tests.
+    """A small real Study on an invented, seeded frame (columns x, a hostile name, g, y).
 
-    No statistics are checked with it.  The frame is invented and seeded: y bends in x (so a
-    square term is evident), ``g`` is a declared group (stated), and a noise column carries a
-    name that would run script if it ever reached HTML unescaped (its terms are speculative).
+    Kept for the tests that were written against it; the widget tests use ``orchard_study``.
     """
     import numpy as np
     import pandas as pd
@@ -152,3 +150,18 @@ def view_study():
     })
     df["y"] = 1 + 2 * df["x"] + 0.6 * df["x"] ** 2 + rng.normal(size=n)
     return Study(df, "y ~ x", groups=["g"])
+
+
+@pytest.fixture
+def orchard_study():
+    """A real Study on the invented orchard scenario, for wiring tests (no statistics checked).
+
+    Its candidates carry every tag: ``block`` is a declared group (stated), the tree-age curve
+    and the cultivar-by-irrigation slopes show in the residuals (evident), the rest are
+    speculative.  The soil reading is renamed to a name that would run script if it ever
+    reached HTML unescaped, so hostile text travels the real path from data to page.
+    """
+    import afterfit as af
+
+    df = af.demo.orchard(seed=0).rename(columns={"soil_n": HOSTILE})
+    return af.Study(df, df.attrs["first_formula"], groups=["block"])

@@ -5,11 +5,11 @@ from afterfit.view.timeline import Timeline, comparison_table, step_records
 
 
 @pytest.fixture
-def grown(view_study):
+def grown(orchard_study):
     """The study after two additions (three steps)."""
-    view_study.add("I(x ** 2)")
-    view_study.add("C(g)", reason="sites differ in soil")
-    return view_study
+    orchard_study.add("I(tree_age ** 2)")
+    orchard_study.add("C(block)", reason="blocks differ in soil")
+    return orchard_study
 
 
 def test_opening_state(wire, grown):
@@ -17,7 +17,7 @@ def test_opening_state(wire, grown):
     state = wire.state(line)
     assert state["steps"] == step_records(grown.steps)
     assert [s["kind"] for s in state["steps"]] == ["start", "add", "add"]
-    assert state["steps"][2]["reason"] == "sites differ in soil"
+    assert state["steps"][2]["reason"] == "blocks differ in soil"
     assert state["steps"][2]["time"] == grown.steps[2].time
     assert state["position"] == 2
     assert (state["can_undo"], state["can_redo"]) == (True, False)
@@ -33,8 +33,8 @@ def test_undo_and_redo_requests(wire, grown):
     assert (grown.position, line.position, line.can_redo) == (2, 2, False)
 
 
-def test_undo_at_the_start_is_an_error_message(wire, view_study):
-    line = Timeline(view_study)
+def test_undo_at_the_start_is_an_error_message(wire, orchard_study):
+    line = Timeline(orchard_study)
     wire.from_page(line, custom={"kind": "undo"})
     assert "nothing to undo" in line.error
     wire.from_page(line, custom={"kind": "redo"})
@@ -60,10 +60,10 @@ def test_compare_request_shows_the_study_comparison(wire, grown):
     assert wire.updates(line)[-1]["comparison"] == shown
 
 
-def test_non_nested_comparison_leaves_the_f_test_out(wire, view_study):
-    view_study.add("I(x ** 2)")
-    view_study.remove("x")
-    result = view_study.compare(0, 2)  # y ~ x against y ~ I(x ** 2): neither contains the other
+def test_non_nested_comparison_leaves_the_f_test_out(wire, orchard_study):
+    orchard_study.add("I(tree_age ** 2)")
+    orchard_study.remove("tree_age")
+    result = orchard_study.compare(0, 2)  # tree_age against I(tree_age ** 2): neither contains the other
     assert result["nested"] is False
     table = comparison_table(result, 0, 2)
     names = [name for name, _ in table["rows"]]
@@ -91,11 +91,11 @@ def test_bad_compare_requests(wire, grown, content, words):
 def test_comparison_is_dropped_when_its_steps_are_replaced(wire, grown):
     line = Timeline(grown)
     line.compare(1, 2)
-    grown.add("np.log(x ** 2)", reason="keeps the comparison?")  # a new step keeps old ones
+    grown.add("np.log(tree_age)", reason="a second look at the age curve")  # appended: kept
     assert line.comparison != {}
     grown.undo()
     grown.undo()
-    grown.add("C(g):x")  # replaces steps 2 and 3
+    grown.add("C(cultivar):irrigation_mm")  # replaces steps 2 and 3
     assert line.comparison == {}
     assert [s["kind"] for s in line.steps] == ["start", "add", "add"]
 
