@@ -549,7 +549,8 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
     nc = np.setdiff1d(np.arange(d.k), d.const_cols)
     m = nc.size
     if m == 0:
-        why = "the model has no regressor besides the constant, so there is nothing for the spread to depend on."
+        why = ("the model has no regressor besides the constant, so there is nothing for the "
+               "spread to depend on.")
         return [_undefined(nm, why) for nm in names]
     n = d.n
     Xn = d.X[:, nc] if m < d.k else d.X

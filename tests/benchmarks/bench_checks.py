@@ -88,7 +88,8 @@ def run(n: int, lb_n: int, *, afterfit_only: bool = False) -> None:
     rows = []  # (test, statsmodels seconds, relative difference, remark)
     t_smfit, res = timed(lambda: sm.OLS(y, X).fit())
     e = res.resid
-    rows.append(("(fit: statsmodels OLS vs fit_ols)", t_smfit, rel(ls.ssr, res.ssr), f"afterfit {t_fit:.2f} s"))
+    rows.append(("(fit: statsmodels OLS vs fit_ols)", t_smfit, rel(ls.ssr, res.ssr),
+                 f"afterfit {t_fit:.2f} s"))
     t, reset = timed(lambda: smd.linear_reset(res, power=3, use_f=True))
     rows.append(("RESET", t, rel(r.loc["RESET", "statistic"], float(reset.fvalue)), ""))
     t, bp = timed(lambda: smd.het_breuschpagan(e, X))
@@ -103,13 +104,11 @@ def run(n: int, lb_n: int, *, afterfit_only: bool = False) -> None:
         t, lb = timed(lambda: smd.acorr_ljungbox(e, lags=lags))
         rows.append(("Ljung-Box", t, rel(r.loc["Ljung-Box", "statistic"], lb["lb_stat"].iloc[-1]), ""))
     else:
-        sub = e[:lb_n]
-        ls_sub = fit_ols(X[:lb_n], y[:lb_n])
-        r_sub = run_checks(ls_sub)
-        t, lb = timed(lambda: smd.acorr_ljungbox(sm.OLS(y[:lb_n], X[:lb_n]).fit().resid, lags=min(10, lb_n // 5)))
+        r_sub = run_checks(fit_ols(X[:lb_n], y[:lb_n]))
+        e_sub = sm.OLS(y[:lb_n], X[:lb_n]).fit().resid
+        t, lb = timed(lambda: smd.acorr_ljungbox(e_sub, lags=min(10, lb_n // 5)))
         rows.append(("Ljung-Box", t, rel(r_sub.loc["Ljung-Box", "statistic"], lb["lb_stat"].iloc[-1]),
                      f"statsmodels timed at n = {lb_n:,} only (O(n^2)); afterfit's value compared there"))
-        del sub
     t, jb = timed(lambda: jarque_bera(e))
     rows.append(("Jarque-Bera", t, rel(r.loc["Jarque-Bera", "statistic"], jb[0]), ""))
 
