@@ -167,7 +167,7 @@ def catalogue(
     Notes
     -----
     A square is written ``I((x - c) ** 2)`` with a round ``c`` near the median when the
-    variable sits far from zero (more than 3 standard deviations): the same model as ``x ** 2``
+    variable sits far from zero (more than 10 standard deviations): the same model as ``x ** 2``
     next to ``x``, without the cancellation.  The time variable gets no log term.
 
     A step is proposed only when the time column has no missing values (``I(t >= c)`` would
@@ -413,7 +413,7 @@ def _square_text(q: str, x: np.ndarray) -> str:
     square from being nearly a copy of the linear term (times in decimal years, say).
     """
     centre, sd = float(np.median(x)), float(np.std(x))
-    if not sd > 0 or abs(centre) <= 3 * sd:
+    if not sd > 0 or abs(centre) <= 10 * sd:
         return f"I({q} ** 2)"
     c = round(centre, max(0, -math.floor(math.log10(sd))))
     return f"I(({q} - {_num(c)}) ** 2)" if c > 0 else f"I(({q} + {_num(-c)}) ** 2)"
@@ -720,6 +720,9 @@ class _Engine:
         self.sw = ls.sqrt_w
         self.e = ls.wresid
         self.Rinv = ls.Rinv if self.r else np.zeros((0, 0))
+        self.unweighted = None
+        if self.sw is not None and not (self.sw > 0).all():
+            self.unweighted = ~(self.sw > 0)
         cond = ls.cond if np.isfinite(ls.cond) else 1e16
         self.noise = 16.0 * _EPS * (1.0 + cond)
 
@@ -735,11 +738,15 @@ class _Engine:
         Zc = np.empty((width + extra, Xc.shape[0])).T
         for j, i in enumerate(idx):
             Zc[:, offs[j]:offs[j + 1]] = self.mats[i][s]
-        if shift is not None:
-            Zc[:, :width] -= shift
-        if self.sw is not None:
-            Xc = Xc * self.sw[s, None]
-            Zc[:, :width] *= self.sw[s, None]
+        with np.errstate(invalid="ignore", over="ignore"):  # non-finite blocks: see _bad_note
+            if shift is not None:
+                Zc[:, :width] -= shift
+            if self.sw is not None:
+                Xc = Xc * self.sw[s, None]
+                Zc[:, :width] *= self.sw[s, None]
+                if self.unweighted is not None:
+                    # rows with weight 0 take no part, whatever their values
+                    Zc[self.unweighted[s], :width] = 0.0
         return Xc, Zc
 
     def _intercept(self):
@@ -785,12 +792,15 @@ class _Engine:
             Xc, W = self._chunk(todo, offs, width, s, shift, extra=1)
             W[:, width] = self.e[s]
             Z = W[:, :width]
-            A += Xc.T @ W
-            v += Z.T @ W[:, width]
-            size2 += np.einsum("ij,ij->j", Z, Z)
-            for j, i in multi:
-                Zb = Z[:, offs[j]:offs[j + 1]]
-                G[i] = G[i] + Zb.T @ Zb
+            # a block with missing or infinite values poisons only its own columns; it is
+            # reported below, so the floating-point warnings are expected here
+            with np.errstate(invalid="ignore", over="ignore"):
+                A += Xc.T @ W
+                v += Z.T @ W[:, width]
+                size2 += np.einsum("ij,ij->j", Z, Z)
+                for j, i in multi:
+                    Zb = Z[:, offs[j]:offs[j + 1]]
+                    G[i] = G[i] + Zb.T @ Zb
         good = []
         for j, i in enumerate(todo):
             sl = slice(offs[j], offs[j + 1])
@@ -804,7 +814,8 @@ class _Engine:
             Rcol = self.ls.R[:, icol]
             wsum = float(Rcol @ Rcol)  # = c0^2 * sum(w)
             if wsum > 0:
-                size2c = np.maximum(size2 - A[icol, :width] ** 2 / wsum, 0.0)
+                with np.errstate(invalid="ignore", over="ignore"):
+                    size2c = np.maximum(size2 - A[icol, :width] ** 2 / wsum, 0.0)
         parts = {}
         for j, i in enumerate(todo):
             if i not in good:
