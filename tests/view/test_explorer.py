@@ -1,0 +1,281 @@
+"""Explorer on a recording comm: composition, the worker that runs Study actions, following changes
+made in other cells, threads, escaping, and the size of everything sent to the page.
+
+The data are the invented, seeded scenarios of ``afterfit.demo`` (orchard; sensors for the
+payload size at a million rows); no statistic is checked here.
+"""
+from __future__ import annotations
+
+import json
+import queue
+import threading
+import time
+
+import numpy as np
+import pytest
+from ipywidgets.widgets.widget import _remove_buffers
+
+from afterfit.model.study import Study
+from afterfit.view.explorer import Explorer, cautions
+from afterfit.view.grid import ResidualGrid
+from afterfit.view.inspector import RowInspector
+
+HOSTILE = "<img src=x onerror=alert(1)>"
+SQUARE = "I(tree_age ** 2)"
+
+
+@pytest.fixture
+def study():
+    """The invented orchard scenario (240 trees), its first model, the block as a group."""
+    from afterfit import demo
+
+    df = demo.orchard(seed=0)
+    return Study(df, df.attrs["first_formula"], groups=["block"])
+
+
+def _until(predicate, timeout=20.0):
+    end = time.monotonic() + timeout
+    while not predicate():
+        if time.monotonic() > end:
+            raise AssertionError("condition not reached in time")
+        time.sleep(0.01)
+
+
+def _states(wire) -> list[tuple[dict, list[bytes]]]:
+    """The page's final view of every widget opened in the test: (JSON state, buffers)."""
+    out = []
+    for c in wire.comms:
+        state: dict = {}
+        buffers: dict = {}
+        for m in c.log:
+            if m.msg_type == "comm_open" or m.method in ("update", "echo_update"):
+                st = m.data.get("state", {})
+                for path, buf in zip(m.data.get("buffer_paths", []), m.buffers):
+                    buffers[tuple(map(str, path))] = buf
+                for key in st:  # a key sent again replaces its earlier buffers
+                    if key not in {p[0] for p in m.data.get("buffer_paths", [])}:
+                        buffers = {p: b for p, b in buffers.items() if p[0] != key}
+                state.update(st)
+        out.append((state, list(buffers.values())))
+    return out
+
+
+def _size(state: dict, buffers: list[bytes]) -> int:
+    return len(json.dumps(state, default=str).encode()) + sum(len(b) for b in buffers)
+
+
+# -- composition -------------------------------------------------------------------------------
+def test_composes_every_part(wire, study):
+    w = Explorer(study)
+    assert w.study is study
+    assert isinstance(w.grid, ResidualGrid) and isinstance(w.inspector, RowInspector)
+    from afterfit.view.meter import Meter
+    from afterfit.view.timeline import Timeline
+    from afterfit.view.tray import Tray
+
+    assert isinstance(w.tray, Tray) and isinstance(w.meter, Meter)
+    assert isinstance(w.timeline, Timeline)
+    below = set()
+    stack = list(w.children)
+    while stack:
+        x = stack.pop()
+        below.add(x)
+        stack.extend(getattr(x, "children", ()))
+    for part in (w.header, w.cautions, w.tray, w.meter, w.grid, w.inspector, w.timeline,
+                 w.export):
+        assert part in below
+    n = len(study.rows)
+    assert f"{n:,} rows used" in w.header.value
+    assert "0 excluded" in w.header.value and "0 dropped for missing values" in w.header.value
+    assert "observational data" in w.cautions.value and "extrapolation" in w.cautions.value
+
+
+def test_small_sample_caution(study):
+    # 10 rows per parameter is the common-practice rule of thumb used for the caution
+    few = Study(study.data.iloc[:12], "yield_kg ~ irrigation_mm")
+    assert "small sample: 12 rows for 2 parameters" in " ".join(cautions(few))
+    assert "small sample" not in " ".join(cautions(study))  # 240 rows for 6 parameters
+
+
+def test_brushing_fills_the_inspector(wire, study):
+    w = Explorer(study)
+    view = w.grid.panels["fitted"]
+    wire.from_page(view.brush, state={"brushing": True})
+    wire.from_page(view.brush, state={"selected_x": [-1e3, 1e3], "selected_y": [0.0, 100.0],
+                                      "brushing": False})
+    expected = study.rows[(study.fit.resid >= 0).to_numpy()]
+    assert w.inspector.rows.equals(expected)
+
+
+# -- the worker ---------------------------------------------------------------------------------
+def test_actions_run_on_the_worker_and_everything_follows(wire, study):
+    w = Explorer(study)
+    seen = []
+
+    def act():
+        seen.append(threading.current_thread().name)
+        study.add(SQUARE, reason="age curve")
+
+    before = w.refresh_count
+    w.run(act, f"add {SQUARE}")
+    assert w.wait(60)
+    assert seen == ["afterfit-worker"]
+    assert w.refresh_count == before + 1  # one refresh of every part per change
+    assert SQUARE in w.header.value
+    assert f"partial:{SQUARE}" in w.grid.titles
+    assert len(w.timeline.steps) == 2 and w.timeline.position == 1
+    assert w.status == "" and w.message.value == ""
+
+
+def test_status_line_and_progress(wire, study):
+    w = Explorer(study)
+    gate = threading.Event()
+    w.run(lambda: gate.wait(20), "slow refit")
+    _until(lambda: w.status.startswith("Working: slow refit"))
+    assert w.progress.layout.visibility == "hidden"  # not before about a second
+    _until(lambda: w.progress.layout.visibility == "visible", timeout=5)
+    assert w.status.endswith(" s")
+    gate.set()
+    assert w.wait(20)
+    _until(lambda: w.status == "")
+    assert w.progress.layout.visibility == "hidden"
+
+
+def test_equivalent_waiting_actions_collapse(wire, study):
+    w = Explorer(study)
+    gate = threading.Event()
+    calls = []
+    w.run(lambda: gate.wait(20), "hold")
+    _until(lambda: w.status.startswith("Working: hold"))
+    for i in range(3):
+        w.run(lambda i=i: calls.append(("redraw", i)), "redraw")
+    w.run(lambda: calls.append("add a"), "add a")
+    w.run(lambda: calls.append("add b"), "add b")
+    w.run(lambda: calls.append(("redraw", 3)), "redraw")
+    assert w.status.endswith("(3 more waiting)")
+    gate.set()
+    assert w.wait(20)
+    assert calls == [("redraw", 3), "add a", "add b"]  # the last redraw won, adds all ran
+
+
+def test_errors_become_a_message(wire, study):
+    w = Explorer(study)
+    w.run(lambda: study.add("no_such_column"), "add no_such_column")
+    assert w.wait(30)
+    assert w.message.value.startswith("Could not add no_such_column: ")
+    assert "Traceback" not in w.message.value
+    assert w.dismiss.layout.display is None
+    w.dismiss.click()
+    assert w.message.value == "" and w.dismiss.layout.display == "none"
+    # the worker survives and keeps working
+    w.run(lambda: study.add(SQUARE, reason="age curve"), "add the square")
+    assert w.wait(60) and SQUARE in w.header.value
+    with pytest.raises(TypeError, match="callable"):
+        w.run("not a function", "oops")
+
+
+def test_changes_from_another_cell_show(wire, study):
+    w = Explorer(study)
+    before = w.refresh_count
+    study.exclude(study.rows[:2], "duplicate entries")  # as from another cell
+    assert w.refresh_count == before + 1
+    assert "2 excluded" in w.header.value
+    assert [o[0] for o in w.inspector.excluded_list.options][0].endswith("duplicate entries")
+    study.undo()
+    assert "0 excluded" in w.header.value
+
+
+def test_exclusion_from_the_inspector_refits_through_the_worker(wire, study):
+    w = Explorer(study)
+    w.grid.select(study.rows[:5])
+    w.inspector.exclude_selected("broken probe")
+    assert w.wait(60)
+    assert list(study.excluded.values()) == ["broken probe"] * 5
+    assert len(w.grid.panels["fitted"].drawn) == len(study.rows) == 235
+    assert "5 excluded" in w.header.value
+
+
+# -- threads ------------------------------------------------------------------------------------
+def test_widget_messages_leave_from_the_main_thread(wire, study, monkeypatch):
+    """With a kernel, refreshes are handed to its IO loop; here a queue plays that loop."""
+    loop: queue.Queue = queue.Queue()
+    w = Explorer(study, dispatch=loop.put)
+    comm_class = type(w.comm)
+    threads = []
+    original = comm_class.publish_msg
+
+    def publish(self, *args, **kwargs):
+        threads.append(threading.current_thread().name)
+        return original(self, *args, **kwargs)
+
+    monkeypatch.setattr(comm_class, "publish_msg", publish)
+    w.run(lambda: study.add(SQUARE, reason="age curve"), "add the square")
+    assert w.wait(60)
+    assert SQUARE not in w.header.value  # not yet: the loop has not run
+    _until(lambda: not loop.empty())
+    while w.refresh_count < 2 or not loop.empty():
+        try:
+            loop.get(timeout=10)()
+        except queue.Empty:
+            break
+    assert SQUARE in w.header.value
+    assert threads and set(threads) == {threading.current_thread().name}
+
+
+def test_without_a_kernel_worker_messages_are_whole(wire, study):
+    """No IO loop: the worker sends directly; every message must still be complete and valid."""
+    w = Explorer(study)
+    wire.clear()
+    for term in (SQUARE, "C(block)"):
+        w.run(lambda t=term: study.add(t, reason="test"), f"add {term}")
+    assert w.wait(60)
+    sent = [m for c in wire.comms for m in c.log]
+    assert sent
+    for m in sent:
+        json.dumps(m.data, allow_nan=False)  # JSON without NaN, as the page requires
+        assert len(m.data.get("buffer_paths", [])) == len(m.buffers)
+    assert study.formula in w.header.value.replace("&quot;", '"')
+
+
+# -- escaping -----------------------------------------------------------------------------------
+def test_hostile_names_reach_html_only_escaped(wire, study):
+    df = study.data.rename(columns={"soil_n": HOSTILE})
+    df["cultivar"] = df["cultivar"].replace("Orvelle", HOSTILE)
+    study = Study(df, f'yield_kg ~ irrigation_mm + Q("{HOSTILE}") + C(cultivar)')
+    w = Explorer(study)
+    w.grid.select(study.rows)
+    html_models = {"HTMLModel", "HTMLMathModel"}
+    seen_escaped = False
+    for state, _ in _states(wire):
+        if state.get("_model_name") in html_models:
+            assert "<img" not in state.get("value", "")
+            seen_escaped |= "&lt;img src=x onerror=alert(1)&gt;" in state.get("value", "")
+        if state.get("description_allow_html"):
+            assert "<img" not in state.get("description", "")
+    assert seen_escaped  # the header shows the formula with the name, escaped
+    # in SVG text (bqplot titles, axis labels, tick labels) the name is plain text
+    titles = {w.grid.panels[k].figure.title for k in w.grid.order}
+    assert f"Residual by {HOSTILE}" in titles
+    ticks = list(w.grid.panels["group:cultivar"].x_axis.tick_labels.values())
+    assert HOSTILE[:15] + "…" in ticks  # level names are cut to 16 characters on the axis
+
+
+# -- payload ------------------------------------------------------------------------------------
+def test_state_at_a_million_rows_stays_small(wire):
+    from afterfit import demo
+
+    df = demo.sensors(10**6)
+    study = Study(df, df.attrs["first_formula"])
+    w = Explorer(study)
+    states = _states(wire)
+    total = sum(_size(s, b) for s, b in states)
+    sent = sum(len(json.dumps(m.data, default=str).encode()) + sum(len(b) for b in m.buffers)
+               for c in wire.comms for m in c.log)
+    print(f"\n10^6 rows: widget state {total / 1e6:.2f} MB in {len(states)} widgets; "
+          f"all messages sent {sent / 1e6:.2f} MB")
+    assert total < 3e6
+    for key in w.grid.order:
+        view = w.grid.panels[key]
+        if view.highlight is not None:
+            assert len(view.drawn) <= w.grid.budget
+            assert view.density.visible
