@@ -51,7 +51,8 @@ export function insertBelowCell(model, cellId, source) {
     if (after !== before + 1) return { ok: false, reason: "the notebook did not take the new cell" };
     return { ok: true, reason: "" };
   } catch (err) {
-    return { ok: false, reason: `the notebook refused the new cell (${String(err && err.message ? err.message : err)})` };
+    const text = err instanceof Error ? err.message : String(err);
+    return { ok: false, reason: `the notebook refused the new cell (${text})` };
   }
 }
 
@@ -124,7 +125,7 @@ const WHAT = { code: "statsmodels code", audit: "audit log" };
  */
 function render({ model, el }) {
   const doc = el.ownerDocument;
-  /** which text the copy box shows: "code", "audit" or null */
+  /** @type {"code"|"audit"|null} which text the copy box shows */
   let boxWhat = null;
   let closed = false;
 
@@ -221,7 +222,8 @@ function render({ model, el }) {
 
   /** @param {MouseEvent} e */
   function onClick(e) {
-    const target = e.target && e.target.closest ? e.target.closest("[data-action]") : null;
+    const hit = /** @type {Element|null} */ (e.target);
+    const target = hit && typeof hit.closest === "function" ? hit.closest("[data-action]") : null;
     if (!target || !root.contains(target)) return;
     const action = target.getAttribute("data-action");
     if (action === "insert") insert();

@@ -139,7 +139,10 @@ function render({ model, el }) {
   el.append(root);
 
   /** @returns {MeterRow[]} */
-  const rows = () => (Array.isArray(model.get("steps")) ? model.get("steps").filter((r) => r && typeof r === "object") : []);
+  const rows = () => {
+    const value = model.get("steps");
+    return Array.isArray(value) ? value.filter((/** @type {any} */ r) => r && typeof r === "object") : [];
+  };
 
   /**
    * @param {MeterRow} now
@@ -147,7 +150,7 @@ function render({ model, el }) {
    */
   function dumbbell(now, range) {
     const [lo, hi] = range;
-    const x = (v) => 40 + ((v - lo) / (hi - lo || 1)) * (WIDTH - 80);
+    const x = (/** @type {number} */ v) => 40 + ((v - lo) / (hi - lo || 1)) * (WIDTH - 80);
     const y = 22;
     const svg = s(doc, "svg", {
       class: "afterfit-dumbbell",
@@ -198,8 +201,8 @@ function render({ model, el }) {
     const left = 44;
     const right = WIDTH - 14;
     const n = all.length;
-    const x = (i) => (n === 1 ? (left + right) / 2 : left + (i / (n - 1)) * (right - left));
-    const y = (v) => bottom - ((v - lo) / (hi - lo || 1)) * (bottom - top);
+    const x = (/** @type {number} */ i) => (n === 1 ? (left + right) / 2 : left + (i / (n - 1)) * (right - left));
+    const y = (/** @type {number} */ v) => bottom - ((v - lo) / (hi - lo || 1)) * (bottom - top);
     const worse = all.filter((r) => r.worse).map((r) => r.step);
     const pick = all.find((r) => r.one_se);
     const svg = s(doc, "svg", {
@@ -225,7 +228,12 @@ function render({ model, el }) {
         svg.append(s(doc, "text", { class: "afterfit-tick", x: x(i), y: bottom + 13, "text-anchor": "middle", text: String(r.step) }));
       }
     });
-    const at = (key) => all.map((r, i) => (finite(r[key]) ? /** @type {[number, number]} */ ([x(i), y(r[key])]) : null));
+    /** @param {"rmse_train"|"rmse_cv"} key */
+    const at = (key) =>
+      all.map((r, i) => {
+        const v = r[key];
+        return finite(v) ? /** @type {[number, number]} */ ([x(i), y(v)]) : null;
+      });
     svg.append(
       s(doc, "path", { class: "afterfit-line-train", d: pathThrough(at("rmse_train")), fill: "none" }),
       s(doc, "path", { class: "afterfit-line-cv", d: pathThrough(at("rmse_cv")), fill: "none" }),

@@ -91,9 +91,10 @@ function render({ model, el }) {
   let selected = [];
   let pending = "";
 
-  const undo = h(doc, "button", { type: "button", "data-action": "undo", text: "\u21B6 Undo" });
-  const redo = h(doc, "button", { type: "button", "data-action": "redo", text: "Redo \u21B7" });
-  const compare = h(doc, "button", { type: "button", "data-action": "compare", text: "Compare selected" });
+  const button = (/** @type {string} */ action, /** @type {string} */ text) => /** @type {HTMLButtonElement} */ (h(doc, "button", { type: "button", "data-action": action, text }));
+  const undo = button("undo", "\u21B6 Undo");
+  const redo = button("redo", "Redo \u21B7");
+  const compare = button("compare", "Compare selected");
   const hint = h(doc, "span", { class: "afterfit-hint" });
   const list = h(doc, "ol", { class: "afterfit-steps", "aria-label": "Steps" });
   const result = h(doc, "section", { class: "afterfit-compare", "aria-label": "Comparison of two steps", hidden: true });
@@ -111,19 +112,24 @@ function render({ model, el }) {
   el.append(root);
 
   /** @returns {StepRow[]} */
-  const steps = () => (Array.isArray(model.get("steps")) ? model.get("steps").filter((r) => r && typeof r === "object") : []);
+  const steps = () => {
+    const value = model.get("steps");
+    return Array.isArray(value) ? value.filter((/** @type {any} */ r) => r && typeof r === "object") : [];
+  };
 
   /** @param {StepRow} step @param {number} position */
   function stepItem(step, position) {
     const index = Number(step.index);
     const current = index === position;
     const undone = index > position;
-    const box = h(doc, "input", {
-      type: "checkbox",
-      "data-action": "select",
-      "data-index": index,
-      "aria-label": `Select step ${index} for comparison`,
-    });
+    const box = /** @type {HTMLInputElement} */ (
+      h(doc, "input", {
+        type: "checkbox",
+        "data-action": "select",
+        "data-index": index,
+        "aria-label": `Select step ${index} for comparison`,
+      })
+    );
     box.checked = selected.includes(index);
     const reason = String(step.reason || "");
     const tag = String(step.tag || "");
@@ -205,7 +211,8 @@ function render({ model, el }) {
 
   /** @param {MouseEvent} e */
   function onClick(e) {
-    const target = e.target && e.target.closest ? e.target.closest("[data-action]") : null;
+    const hit = /** @type {Element|null} */ (e.target);
+    const target = /** @type {HTMLButtonElement|null} */ (hit && typeof hit.closest === "function" ? hit.closest("[data-action]") : null);
     if (!target || !root.contains(target) || target.disabled) return;
     const action = target.getAttribute("data-action");
     if (action === "undo" || action === "redo") {
@@ -231,7 +238,7 @@ function render({ model, el }) {
     const index = Number(box.getAttribute("data-index"));
     selected = pick(selected, index, box.checked);
     // a third tick unticks the oldest one
-    for (const other of list.querySelectorAll("input[data-action=select]")) {
+    for (const other of /** @type {HTMLInputElement[]} */ (Array.from(list.querySelectorAll("input[data-action=select]")))) {
       other.checked = selected.includes(Number(other.getAttribute("data-index")));
     }
     drawControls();

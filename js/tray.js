@@ -29,7 +29,10 @@
  * @property {(content: object, callbacks?: any, buffers?: ArrayBuffer[]) => void} send
  */
 
-/** Tag styling: each tag has a distinct mark (shape) and word, not only a colour. */
+/**
+ * Tag styling: each tag has a distinct mark (shape) and word, not only a colour.
+ * @type {Readonly<Record<string, {mark: string, word: string, hint: string}>>}
+ */
 export const TAGS = Object.freeze({
   stated: { mark: "\u25A0", word: "stated", hint: "you declared grounds for it" },
   evident: { mark: "\u25B2", word: "evident", hint: "the residuals show it after multiplicity control" },
@@ -94,7 +97,7 @@ export function chipLabel(c) {
  * @returns {HTMLElement}
  */
 function h(doc, tag, attrs = {}, ...children) {
-  const node = doc.createElement(tag);
+  const node = /** @type {HTMLInputElement} */ (doc.createElement(tag));
   for (const [key, value] of Object.entries(attrs)) {
     if (value === null || value === undefined || value === false) continue;
     if (key === "text") node.textContent = String(value);
@@ -115,7 +118,7 @@ const asList = (v) => (Array.isArray(v) ? v : []);
  */
 function render({ model, el }) {
   const doc = el.ownerDocument;
-  /** term waiting for a reason (speculative), or null */
+  /** @type {string|null} term waiting for a reason (speculative), or null */
   let prompting = null;
   /** text shown while Python works on a request */
   let pending = "";
@@ -126,13 +129,13 @@ function render({ model, el }) {
   const stripHead = h(doc, "div", { class: "afterfit-zone-head" });
   const termList = h(doc, "ul", { class: "afterfit-terms", role: "list", "aria-label": "Terms in the model" });
   const promptText = h(doc, "span", { class: "afterfit-reason-text" });
-  const input = h(doc, "input", {
+  const input = /** @type {HTMLInputElement} */ (h(doc, "input", {
     type: "text",
     class: "afterfit-reason-input",
     maxlength: "300",
     placeholder: "one line: why this term?",
     "data-action": "reason-input",
-  });
+  }));
   const promptHint = h(doc, "span", { class: "afterfit-hint", "aria-live": "polite" });
   const prompt = h(
     doc,
@@ -233,7 +236,7 @@ function render({ model, el }) {
   /** @param {string} term @returns {HTMLElement|null} */
   function itemFor(term) {
     for (const node of root.querySelectorAll("[data-term]")) {
-      if (node.getAttribute("data-term") === term) return node;
+      if (node.getAttribute("data-term") === term) return /** @type {HTMLElement} */ (node);
     }
     return null;
   }
@@ -334,8 +337,20 @@ function render({ model, el }) {
     drawStatus();
   }
 
-  /** @param {Event} e @returns {HTMLElement|null} */
-  const zoneOf = (e) => (e.target && e.target.closest ? e.target.closest("[data-zone]") : null);
+  /**
+   * The element that received an event, when it is an element.
+   * @param {Event} e
+   * @returns {Element|null}
+   */
+  const targetOf = (e) => {
+    const t = /** @type {Element|null} */ (e.target);
+    return t && typeof t.closest === "function" ? t : null;
+  };
+  /** @param {Event} e @returns {Element|null} */
+  const zoneOf = (e) => {
+    const t = targetOf(e);
+    return t ? t.closest("[data-zone]") : null;
+  };
 
   function clearDragMarks() {
     for (const node of root.querySelectorAll(".afterfit-over, .afterfit-dragging")) {
@@ -346,7 +361,8 @@ function render({ model, el }) {
 
   /** @param {MouseEvent} e */
   function onClick(e) {
-    const button = e.target && e.target.closest ? e.target.closest("[data-action]") : null;
+    const hit = targetOf(e);
+    const button = hit ? hit.closest("[data-action]") : null;
     if (!button || !root.contains(button)) return;
     const action = button.getAttribute("data-action");
     const item = button.closest("[data-term]");
@@ -374,16 +390,17 @@ function render({ model, el }) {
     if (!target || !target.getAttribute || !target.hasAttribute("data-item")) return;
     if (e.key !== "Enter" && e.key !== " ") return;
     e.preventDefault();
-    const term = target.getAttribute("data-term");
+    const term = target.getAttribute("data-term") || "";
     if (target.getAttribute("data-item") === "chip") requestAdd(term);
     else requestRemove(term);
   }
 
   /** @param {DragEvent} e */
   function onDragStart(e) {
-    const item = e.target && e.target.closest ? e.target.closest("[data-term]") : null;
+    const hit = targetOf(e);
+    const item = hit ? hit.closest("[data-term]") : null;
     if (!item || !e.dataTransfer) return;
-    e.dataTransfer.setData("text/plain", item.getAttribute("data-term"));
+    e.dataTransfer.setData("text/plain", item.getAttribute("data-term") || "");
     e.dataTransfer.effectAllowed = "move";
     item.classList.add("afterfit-dragging");
   }
@@ -400,7 +417,8 @@ function render({ model, el }) {
   /** @param {DragEvent} e */
   function onDragLeave(e) {
     const zone = zoneOf(e);
-    if (zone && !(e.relatedTarget && zone.contains(e.relatedTarget))) zone.classList.remove("afterfit-over");
+    const into = /** @type {Node|null} */ (e.relatedTarget);
+    if (zone && !(into && zone.contains(into))) zone.classList.remove("afterfit-over");
   }
 
   /** @param {DragEvent} e */
