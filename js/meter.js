@@ -309,7 +309,7 @@ function render({ model, el }) {
           class: "afterfit-examined",
           text:
             `${examined} candidate${examined === 1 ? "" : "s"} examined \u00B7 ` +
-            `terms added: ${changeText(now.terms_added)} \u00B7 removed: ${changeText(now.terms_removed)}`,
+            `since the start: terms added ${changeText(now.terms_added)}, removed ${changeText(now.terms_removed)}`,
         }),
       );
       if (examined > 0) {

@@ -26,7 +26,7 @@ test("the current step's numbers, examined count and changed terms are shown as 
   const { el } = setup();
   assert.equal(el.querySelector(".afterfit-meter-step").textContent, "step 2: add x2");
   assert.equal(el.querySelector(".afterfit-meter-numbers").textContent, "training RMSE 1.15 \u00B7 CV RMSE 1.32 \u00B1 0.05 \u00B7 gap 0.17");
-  assert.equal(el.querySelector(".afterfit-examined").textContent, "17 candidates examined \u00B7 terms added: 2 \u00B7 removed: 0");
+  assert.equal(el.querySelector(".afterfit-examined").textContent, "17 candidates examined \u00B7 since the start: terms added 2, removed 0");
 });
 
 test("the dumbbell has a training dot, a CV mark, a whisker of one SE and the gap", () => {
