@@ -120,6 +120,7 @@ class Explorer(W.VBox):
                                                                         display="none"))
         self.dismiss.on_click(lambda _b: self._set_message(""))
 
+        from afterfit.view.cells import ExportBridge
         from afterfit.view.meter import Meter
         from afterfit.view.timeline import Timeline
         from afterfit.view.tray import Tray
@@ -129,7 +130,7 @@ class Explorer(W.VBox):
         self.grid = ResidualGrid(study, run=self.run, budget=budget, max_panels=max_panels)
         self.inspector = RowInspector(study, run=self.run)
         self.timeline = Timeline(study, run=self.run)
-        self.export = _export_bar(study, self.run)
+        self.export = ExportBridge(study, run=self.run)
         self.grid.on_select(self.inspector.show_rows)
 
         section = {"margin": "8px 0 0 0"}
@@ -362,6 +363,11 @@ class Explorer(W.VBox):
             f'{PALETTE["selected"]};padding:2px 8px;margin:4px 0">'
             "<b>Cautions</b>: " + " · ".join(items) + "</div>")
 
+    def _repr_mimebundle_(self, **kwargs: Any) -> Any:
+        # the export bridge inserts code after the cell that shows it: that is this cell
+        self.export.note_cell()
+        return super()._repr_mimebundle_(**kwargs)
+
     def close(self) -> None:
         """Stop following the Study, stop the worker, and close every part."""
         with self._cv:
@@ -405,44 +411,3 @@ def cautions(study: Any) -> list[str]:
         out.append("extrapolation: the fit describes only the observed ranges ("
                    + "; ".join(ranges) + "); predictions outside them are guesses")
     return out
-
-
-def _export_bar(study: Any, run: Callable) -> W.Widget:
-    """The export part: the cells bridge when available, else a code/audit box with copy text."""
-    try:
-        from afterfit.view import cells
-    except ImportError:
-        cells = None
-    cls = None
-    if cells is not None:
-        for name in ("Export", "ExportBar", "Cells", "CellBridge"):
-            cls = getattr(cells, name, None)
-            if cls is not None:
-                break
-    if cls is not None:
-        return cls(study, run=run)
-    return _PlainExport(study)
-
-
-class _PlainExport(W.VBox):
-    """Export without the cells bridge: buttons that show the code or the audit log as text."""
-
-    def __init__(self, study: Any):
-        super().__init__()
-        self._study = study
-        self.code_button = W.Button(description="Show statsmodels code", icon="code")
-        self.audit_button = W.Button(description="Show audit log", icon="list")
-        self.text = W.Textarea(value="", layout=W.Layout(width="100%", height="160px",
-                                                         display="none"))
-        self.code_button.on_click(lambda _b: self._show(self._study.to_code()))
-        self.audit_button.on_click(lambda _b: self._show(self._study.audit()))
-        self.children = [W.HBox([self.code_button, self.audit_button]), self.text]
-
-    def _show(self, text: str) -> None:
-        self.text.value = text
-        self.text.layout.display = None
-
-    def refresh(self) -> None:
-        if self.text.layout.display != "none":
-            self.text.value = ""
-            self.text.layout.display = "none"

@@ -75,6 +75,10 @@ def test_composes_every_part(wire, study):
 
     assert isinstance(w.tray, Tray) and isinstance(w.meter, Meter)
     assert isinstance(w.timeline, Timeline)
+    from afterfit.view.cells import ExportBridge
+
+    assert isinstance(w.export, ExportBridge)
+    assert w.export.code == study.to_code()
     below = set()
     stack = list(w.children)
     while stack:
