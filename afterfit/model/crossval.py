@@ -1,7 +1,7 @@
 """Cross-validated prediction error of a linear model, from one pass over the rows.
 
 Every fold is reduced once to the small upper-triangular factor ``R_f`` of its weighted, augmented
-rows ``sqrt(w) [X_f | y_f]`` (Householder QR, LAPACK ``geqrf``, on cache-sized tiles of rows whose
+rows ``sqrt(w) [X_f | y_f]`` (Householder QR, LAPACK ``geqrf``, on tiles of at most 16 MiB whose
 factors are stacked and re-factored, so the data are never copied whole).  Because ``R_f' R_f`` equals that
 fold's Gram matrix exactly, the factor of any union of folds is the QR of the stacked factors of
 its folds: a matrix with at most ``2 (p + 1)`` rows here, since the training set of fold ``j`` is
@@ -29,8 +29,10 @@ from scipy.linalg import lapack
 __all__ = ["CVResult", "make_folds", "cross_validate"]
 
 SCHEMES = ("kfold", "blocked", "forward")
-# rows per tile x columns: ~512 KiB of doubles, sized to stay in cache
-_TILE_ELEMENTS = 65536
+# rows per tile x columns: 16 MiB of doubles.  Smaller, cache-sized tiles were as fast on a quiet
+# machine but many times slower on a busy one, where every small threaded BLAS call waits for
+# its threads; larger tiles only add memory
+_TILE_ELEMENTS = 1 << 21
 # up to this many folds, predictions come from one matrix product over X
 _GEMM_FOLDS = 64
 _GEMM_LOOKUP = 1 << 16
@@ -299,8 +301,8 @@ class _Small:
 def _fold_r(X, y, sw, rows):
     """R factor of the weighted augmented rows ``sqrt(w) [X | y]`` of one fold (<= p+1 rows).
 
-    Rows are factored in tiles small enough to stay in cache (TSQR: each tile's R is stacked onto
-    the running R and re-factored), so no copy of the fold is ever made.
+    Rows are factored in bounded tiles (TSQR: each tile's R is stacked onto the running R and
+    re-factored), so no copy of the whole fold is made.
     """
     p = X.shape[1]
     R = None
@@ -335,7 +337,7 @@ def _predict(X, folds, test_labels, coef, test_rows):
     if test_labels[-1] < _GEMM_LOOKUP:
         lookup = np.full(int(test_labels[-1]) + 2, -1)
         lookup[test_labels + 1] = np.arange(k)
-    step = max(_TILE_ELEMENTS // p, 1)
+    step = max(_TILE_ELEMENTS // (p + k), 1)
     for s in range(0, n, step):
         f = folds[s:s + step]
         if lookup is not None:

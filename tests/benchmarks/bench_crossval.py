@@ -2,7 +2,9 @@
 
 Run ``python tests/benchmarks/bench_crossval.py`` (n = 10^6, p = 12) or with ``--quick``
 (n = 10^5).  All timings are taken in the same run; the table reports best-of-repeats seconds and
-ratios.  Goal: afterfit's 10-fold CV costs at most 2x one fit.
+ratios.  Goal: afterfit's 10-fold CV costs at most 2x one fit.  On a machine that is busier
+than its CPU count, threaded BLAS calls slow down unevenly and the ratios mean little: the
+table prints the load; run it on a quiet machine (or with ``OPENBLAS_NUM_THREADS=1``).
 
 The folds are contiguous blocks in row order (``scheme="blocked"``), which is the partition
 scikit-learn's ``cross_val_score(..., cv=10)`` uses for a regressor, so the per-fold errors of the
@@ -11,6 +13,7 @@ two can be compared as a check that both computed the same thing.
 from __future__ import annotations
 
 import argparse
+import os
 import time
 
 import numpy as np
@@ -69,7 +72,9 @@ def main(argv=None):
     rows.append(("10-fold CV: scikit-learn cross_val_score", t_sk))
 
     agree = np.max(np.abs(-scores - res.per_fold["rmse_test"].to_numpy()))
-    print(f"\n10-fold cross-validation, n = {n:,}, p = {p} (best of {repeats}; same run)\n")
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    print(f"\n10-fold cross-validation, n = {n:,}, p = {p} (best of {repeats}; same run; "
+          f"{os.cpu_count()} CPUs, 1-minute load {load:.1f} at the end)\n")
     print("| method | seconds | vs numpy lstsq | vs afterfit CV |")
     print("|---|---:|---:|---:|")
     for name, t in rows:
