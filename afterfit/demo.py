@@ -227,7 +227,8 @@ def sensors(n=100_000, *, seed=0) -> pd.DataFrame:
     # one (columns x rows) block filled in place: pandas adopts it without the copy it makes
     # when it stacks separate arrays, which would cost as much as drawing them
     block = np.empty((len(cols), n))
-    ambient, inlet, flow, pressure, humidity, fan, vibration, voltage, light, filter_age, power = block
+    (ambient, inlet, flow, pressure, humidity, fan, vibration, voltage, light, filter_age,
+     power) = block
     for row in (ambient, inlet, flow, pressure, fan, voltage, power):
         rng.standard_normal(out=row)
     for row in (humidity, light, filter_age):

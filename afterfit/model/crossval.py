@@ -2,10 +2,11 @@
 
 Every fold is reduced once to the small upper-triangular factor ``R_f`` of its weighted, augmented
 rows ``sqrt(w) [X_f | y_f]`` (Householder QR, LAPACK ``geqrf``, on tiles of at most 16 MiB whose
-factors are stacked and re-factored, so the data are never copied whole).  Because ``R_f' R_f`` equals that
-fold's Gram matrix exactly, the factor of any union of folds is the QR of the stacked factors of
-its folds: a matrix with at most ``2 (p + 1)`` rows here, since the training set of fold ``j`` is
-assembled from a running prefix (folds before ``j``) and suffix (folds after ``j``).  So ten-fold
+factors are stacked and re-factored, so the data are never copied whole).  Because ``R_f' R_f``
+equals that fold's Gram matrix exactly, the factor of any union of folds is the QR of the
+stacked factors of its folds: a matrix with at most ``2 (p + 1)`` rows here, since the training
+set of fold ``j`` is assembled from a running prefix (folds before ``j``) and suffix (folds after
+``j``).  So ten-fold
 cross-validation costs one QR of the data plus ``O(k p^3)`` small work, not ten fits; and, unlike
 summing Gram blocks, it never squares the condition number of the design.
 
@@ -127,8 +128,8 @@ def make_folds(n, *, k=10, seed=0, order=None, scheme="kfold") -> np.ndarray:
     if blocks > n:
         if scheme == "forward":
             raise ValueError(
-                f"forward chaining with k={k} needs k + 1 = {blocks} time blocks but there are only "
-                f"n={n} rows; use k <= {n - 1}"
+                f"forward chaining with k={k} needs k + 1 = {blocks} time blocks but there are "
+                f"only n={n} rows; use k <= {n - 1}"
             )
         raise ValueError(
             f"k={k} folds need at least k rows but there are only n={n}; use k <= {n} "
@@ -429,7 +430,9 @@ def _time_order(order, n):
     try:
         return key.sort_values(kind="stable").index.to_numpy()
     except TypeError as exc:
-        raise ValueError(f"order must hold sortable values of one kind (times or numbers): {exc}") from None
+        raise ValueError(
+            f"order must hold sortable values of one kind (times or numbers): {exc}"
+        ) from None
 
 
 def _check_inputs(X, y, folds, weights, names):
@@ -465,11 +468,13 @@ def _check_inputs(X, y, folds, weights, names):
     folds = np.asarray(folds)
     if folds.shape != (n,):
         raise ValueError(f"folds must have one label per row ({n}), got shape {folds.shape}")
-    if not np.issubdtype(folds.dtype, np.integer):
-        if np.issubdtype(folds.dtype, np.floating) and np.all(np.isfinite(folds)) and np.all(folds == np.round(folds)):
-            pass
-        else:
-            raise ValueError("folds must be whole-number labels (-1 for train only, 0, 1, ...)")
+    whole = np.issubdtype(folds.dtype, np.integer) or (
+        np.issubdtype(folds.dtype, np.floating)
+        and np.all(np.isfinite(folds))
+        and np.all(folds == np.round(folds))
+    )
+    if not whole:
+        raise ValueError("folds must be whole-number labels (-1 for train only, 0, 1, ...)")
     folds = folds.astype(np.intp)
     sw = None
     if weights is not None:
