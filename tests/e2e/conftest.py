@@ -171,6 +171,10 @@ def lab(tmp_path_factory):
     plugin.mkdir(parents=True)
     (plugin / "notification.jupyterlab-settings").write_text(
         json.dumps({"fetchNews": "false", "checkForUpdates": False}))
+    # keep every cell in the DOM: with windowing, cells out of view are detached and unlocatable
+    nb_plugin = settings / "@jupyterlab" / "notebook-extension"
+    nb_plugin.mkdir(parents=True)
+    (nb_plugin / "tracker.jupyterlab-settings").write_text(json.dumps({"windowingMode": "none"}))
     env = dict(os.environ)
     env.update(JUPYTER_RUNTIME_DIR=str(runtime), JUPYTERLAB_SETTINGS_DIR=str(settings),
                JUPYTERLAB_WORKSPACES_DIR=str(base / "workspaces"), PYTHONUNBUFFERED="1")
@@ -247,8 +251,9 @@ def browser_context():
 def pytest_runtest_makereport(item, call):
     report = yield
     if report.when == "call" and report.failed:
-        pg = item.funcargs.get("page") if hasattr(item, "funcargs") else None
-        if pg is not None:
+        args = [getattr(v, "page", v) for v in getattr(item, "funcargs", {}).values()]
+        pages = [v for v in args if hasattr(v, "screenshot")]
+        for pg in pages[:1]:
             with contextlib.suppress(Exception):
                 shot(pg, f"FAILED-{item.name}")
     return report
