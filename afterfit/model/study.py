@@ -312,6 +312,7 @@ class Study:
         self.multiplicity = multiplicity
         self.seed = int(seed)
         self.k_folds = int(cv)
+        self.delta_cv_top = 10
         self.holdout_fraction = float(holdout)
         self._lock = threading.RLock()
         self._listeners: list[Callable] = []
@@ -708,13 +709,12 @@ class Study:
             scores = C.score_candidates(model.ls, blocks, method=self.multiplicity,
                                         alpha=self.alpha)
             table = C.rank_candidates(cands, scores, alpha=self.alpha)
-            if hasattr(C, "delta_cv"):
-                try:
-                    dcv = C.delta_cv(model.X, model.y, self._folds[model.rows], blocks,
-                                     weights=model.w, order=list(table.index))
-                    table["delta_cv"] = dcv
-                except TypeError:
-                    pass
+            # change in CV RMSE for the leading candidates (each costs about one fit)
+            where = {c.term: i for i, c in enumerate(cands)}
+            ordered = [blocks[where[t]] for t in table["term"]]
+            table["delta_cv"] = C.delta_cv(model.X, model.y, self._folds[model.rows], ordered,
+                                           top=self.delta_cv_top, weights=model.w,
+                                           scheme=self.cv_scheme)
             table.attrs["examined"] = len(cands)
             self._cand_cache[state] = table
             self._examined_terms.update(c.term for c in cands)
