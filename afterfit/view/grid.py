@@ -705,6 +705,7 @@ class ResidualGrid(W.VBox):
     ----------
     panels : dict of key -> PanelView for the panels built so far.
     order : keys of the panels on screen, top first.
+    problems : key -> message for panels the Study could not give (shown in the note line).
     selection : index labels of the brushed rows (empty when nothing is selected).
     """
 
@@ -722,6 +723,8 @@ class ResidualGrid(W.VBox):
         self.scores: dict[str, Score] = {}
         self._layout = _Layout()
         self._snap: _Snapshot | None = None
+        self._built: dict[str, PanelData] = {}
+        self.problems: dict[str, str] = {}
         self._mask: np.ndarray | None = None
         self._selection = pd.Index([])
         self._source: str | None = None
@@ -775,6 +778,8 @@ class ResidualGrid(W.VBox):
         """Redraw every visible panel from the Study's current fit and re-apply the selection."""
         snap = _Snapshot(self._study, budget=self.budget, seed=self.seed)
         self._snap = snap
+        self._built = {}
+        self.problems = {}
         plan = panel_keys(self._study)
         self.titles = dict(plan)
         self.scores = {key: _score_for(snap, key) for key, _title in plan}
@@ -803,9 +808,17 @@ class ResidualGrid(W.VBox):
         visible = [k for k in self.ranked() if k not in self._layout.hidden]
         shown = visible[: self.max_panels]
         boxes = []
+        order = []
         for key in shown:
+            data = self._built.get(key)
+            if data is None:
+                try:
+                    data = build_panel(snap, key, self.titles[key])
+                except Exception as exc:  # one panel the Study cannot give must not stop the rest
+                    self.problems[key] = str(exc).strip() or type(exc).__name__
+                    continue
+                self._built[key] = data
             view = self.panels.get(key)
-            data = build_panel(snap, key, self.titles[key])
             if view is None or view.kind != data.kind:
                 view = PanelView(key, data.kind, on_brush=self._brushed, on_pin=self.pin,
                                  on_hide=self.hide_panel)
@@ -814,21 +827,26 @@ class ResidualGrid(W.VBox):
                 view.pin.value = key in self._layout.pinned
             if data.subtitle != view.subtitle.value:
                 view.subtitle.value = data.subtitle
-            view.show(data, snap.drawn)
+            if view.data is not data:  # pin, hide and "more" move panels without resending
+                view.show(data, snap.drawn)
             boxes.append(view.box)
-        self.order = shown
+            order.append(key)
+        self.order = order
         self.cells.children = boxes
         n_more = len(visible) - len(shown)
         self.more.description = f"Show {min(n_more, 6)} more panel(s) of {n_more}"
         self.more.layout.display = None if n_more > 0 else "none"
         d = snap.drawn
         if d.complete:
-            self.note.value = f"{d.n_rows:,} rows, all drawn. Brush a panel to select rows."
+            note = f"{d.n_rows:,} rows, all drawn. Brush a panel to select rows."
         else:
-            self.note.value = (
-                f"{d.n_rows:,} rows: each panel draws {len(d.positions):,} "
-                f"({d.n_kept:,} most extreme or influential, the rest a random sample) over a "
-                "density shade of all rows. A brush selects every row in its range.")
+            note = (f"{d.n_rows:,} rows: each panel draws {len(d.positions):,} "
+                    f"({d.n_kept:,} most extreme or influential, the rest a random sample) over "
+                    "a density shade of all rows. A brush selects every row in its range.")
+        if self.problems:
+            note += " Not drawn: " + "; ".join(
+                f"{self.titles.get(k, k)} ({msg})" for k, msg in self.problems.items())
+        self.note.value = note
         hidden = self._layout.hidden
         self.hidden_pick.options = [(self.titles[k], k) for k in hidden]
         self.hidden_bar.layout.display = None if hidden else "none"

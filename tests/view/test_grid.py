@@ -329,3 +329,31 @@ def test_selection_follows_a_refit(wire, study):
     assert grid.selection.equals(chosen[3:])
     assert len(grid.panels["var:tree_age"].drawn) == len(study.rows)
     assert f"{len(study.rows):,} rows" in grid.note.value
+
+
+def test_moving_panels_resends_nothing_but_the_order(wire, study, monkeypatch):
+    grid = ResidualGrid(study, max_panels=50)
+    calls = []
+    original = study.binned_means
+    monkeypatch.setattr(study, "binned_means", lambda *a, **k: calls.append(a) or original(*a, **k))
+    wire.clear()
+    last = grid.order[-1]
+    grid.pin(last)
+    grid.hide_panel(grid.order[1])
+    grid.show_all()
+    assert calls == []  # nothing recomputed
+    for key in grid.order:
+        for m in wire.log(grid.panels[key].dots):
+            assert "x" not in m.data.get("state", {})  # no coordinates sent again
+    assert wire.updates(grid.cells)  # only the order of the cells changed
+
+
+def test_a_panel_the_study_cannot_give_is_reported(wire, study, monkeypatch):
+    def broken(term):
+        raise ValueError(f"no partial residuals for {term}")
+
+    monkeypatch.setattr(study, "partial_residuals", broken)
+    grid = ResidualGrid(study, max_panels=50)
+    assert "partial:tree_age" not in grid.order and "fitted" in grid.order
+    assert "Not drawn: Partial residual: " in grid.note.value
+    assert "no partial residuals for tree_age" in grid.note.value
