@@ -20,6 +20,7 @@ and are never evaluated here.
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Mapping, Sequence
@@ -28,7 +29,7 @@ import numpy as np
 import pandas as pd
 import patsy
 import scipy.linalg as sla
-from scipy import stats
+from scipy import special, stats
 from scipy.linalg import lapack
 
 from afterfit.model.terms import Declarations, quote_name, term_variables
@@ -66,7 +67,7 @@ _NULL_SHARE = 1e-10
 # Change-point search: each segment keeps at least this share of the rows (15 % trimming is
 # common practice for sup-F change-point tests) and at most this many positions are tried.
 _STEP_TRIM = 0.15
-_STEP_MAX_POSITIONS = 40
+_STEP_MAX_POSITIONS = 100
 _HINGE_QUANTILES = np.linspace(0.1, 0.9, 9)
 # Categoricals with more levels than this share of the rows look like identifiers, not groups.
 _MAX_LEVEL_SHARE = 0.5
@@ -175,7 +176,7 @@ def catalogue(
 
     Data-driven positions: with ``fit`` or ``resid`` given, a hinge's knot is the decile
     (10 %..90 %) and a step's change point the time value (each segment keeping at least 15 % of
-    the rows, at most 40 positions) whose column explains the most residual variation.  Picking
+    the rows, at most 100 positions) whose column explains the most residual variation.  Picking
     the best of several positions makes the ordinary p-value optimistic, so the candidate records
     how many positions were tried (``searched``) and :func:`score_candidates` multiplies its
     p-value by that number (Bonferroni: conservative, never optimistic).  Without ``fit`` or
@@ -359,9 +360,11 @@ class _TermSet:
         return [t.name() for t in _parse_terms(text) if t not in self.terms]
 
 
+@functools.lru_cache(maxsize=4096)
 def _parse_terms(text):
+    # patsy's parser is slow next to everything else here, and the same texts recur every refit
     desc = patsy.ModelDesc.from_formula("__y__ ~ 0 + " + text)
-    return [t for t in desc.rhs_termlist if t.factors]
+    return tuple(t for t in desc.rhs_termlist if t.factors)
 
 
 def _is_categorical(s: pd.Series) -> bool:
@@ -640,7 +643,7 @@ def score_candidates(
             rest = max(e2 - expl, 0.0)
             F = (expl / q) / (rest / den_df) if rest > 0 else np.inf
             stat[i], dfn[i], dfd[i] = F, q, den_df
-            p = float(stats.f.sf(F, q, den_df))
+            p = float(special.fdtrc(q, den_df, F))
             if searched[i] > 1:
                 p = min(1.0, p * searched[i])
                 notes[i] = (
@@ -863,7 +866,7 @@ class _Engine:
         Lk, piv = got
         if not piv.size:
             return 0.0, 0
-        z = sla.solve_triangular(Lk, us[piv], lower=True)
+        z = np.linalg.solve(Lk, us[piv])  # tiny triangular system: LAPACK gesv is cheapest
         return float(z @ z), len(piv)
 
     # -- row path (classical Gram-Schmidt twice, TSQR) -----------------------------------------
@@ -1254,4 +1257,4 @@ def _eta_squared(codes, e, w):
     if n - k < 1:
         return score, np.nan, k
     F = (ssb / (k - 1)) / (ssw / (n - k)) if ssw > 0 else np.inf
-    return score, float(stats.f.sf(F, k - 1, n - k)), k
+    return score, float(special.fdtrc(k - 1, n - k, F)), k

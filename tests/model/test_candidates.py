@@ -392,7 +392,7 @@ def test_catalogue_with_residuals_only_picks_the_same_step():
     step_a = next(c for c in a if c.kind == "step")
     step_b = next(c for c in b if c.kind == "step")
     assert step_a.term == step_b.term
-    # the planted change is at 2025; positions are a grid of at most 40 (about 3 months apart)
+    # the planted change is at 2025 (with 140 possible positions, all are tried)
     assert abs(float(step_a.term[len("I(t >= "):-1]) - 2025) < 0.3
 
 
