@@ -65,7 +65,8 @@ class CVResult:
         rows)``, not the mean of per-fold RMSEs.
     rmse_cv_se : float
         Standard error of the per-fold RMSEs across folds, ``std(rmse_test, ddof=1) / sqrt(k)``,
-        as used by the one-standard-error rule (common practice).
+        as used by the one-standard-error rule (common practice).  ``n_train`` and ``n_test``
+        count rows, including any of weight 0.
     per_fold : DataFrame
         One row per held-out fold: ``fold``, ``n_train``, ``n_test``, ``rmse_test``,
         ``rmse_train`` (in-sample RMSE of that fold's training fit), ``rank`` and ``aliased``
@@ -159,8 +160,11 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
         Fold labels, as from :func:`make_folds`: ``0..`` are held-out folds, ``-1`` rows are only
         trained on.  For ``"forward"`` the numeric order of labels is time order.
     weights : array-like, shape (n,), optional
-        Positive case weights (as in weighted least squares).  Fits minimise ``sum(w * e**2)``
-        and every RMSE is the weighted one, ``sqrt(sum(w * e**2) / sum(w))``.
+        Non-negative case weights (as in weighted least squares).  Fits minimise
+        ``sum(w * e**2)`` and every RMSE is the weighted one, ``sqrt(sum(w * e**2) / sum(w))``.
+        As in ``fit_ols``, rows of weight 0 take no part in any fit and add nothing to the
+        errors, but still get a held-out prediction; a fold whose rows all have weight 0 gets
+        ``rmse_test`` NaN and is left out of ``rmse_cv_se``.
     scheme : {"kfold", "blocked", "forward"}
         How training sets are formed: for ``"kfold"`` and ``"blocked"`` fold ``j`` is predicted
         from every other row; for ``"forward"`` only from rows labelled ``-1`` and folds whose
@@ -213,13 +217,19 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
     fold_rows = [perm[bounds[i]:bounds[i + 1]] for i in range(len(labels))]
     counts = np.diff(bounds)
     fold_r = [_fold_r(X, y, sw, rows) for rows in fold_rows]
-    wsum = counts.astype(float) if sw is None else np.add.reduceat((sw**2)[perm], bounds[:-1])
+    if sw is None:
+        wsum, npos = counts.astype(float), counts
+    else:
+        # zero-weight rows take no part in fits or weighted errors, as in fit_ols
+        wsum = np.add.reduceat((sw**2)[perm], bounds[:-1])
+        npos = np.add.reduceat((sw > 0)[perm].astype(np.intp), bounds[:-1])
 
     head = 1 if has_train_only else 0
     base = fold_r[0] if has_train_only else None
     base_n = int(counts[0]) if has_train_only else 0
     base_w = float(wsum[0]) if has_train_only else 0.0
-    tr, tn, tw = fold_r[head:], counts[head:], wsum[head:]
+    base_pos = int(npos[0]) if has_train_only else 0
+    tr, tn, tw, tpos = fold_r[head:], counts[head:], wsum[head:], npos[head:]
     # prefix[j]: train-only rows and folds before j; suffix[j]: folds j and after
     prefix = [base]
     for r in tr:
@@ -235,15 +245,18 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
         if scheme == "forward":
             r_train = prefix[j]
             n_train = base_n + int(tn[:j].sum())
+            n_fit = base_pos + int(tpos[:j].sum())
         else:
             r_train = _stack_r(prefix[j], suffix[j + 1])
             n_train = n - int(tn[j])
-        if n_train < p:
+            n_fit = int(npos.sum()) - int(tpos[j])
+        if n_fit < p:
             raise ValueError(
-                f"held-out fold {test_labels[j]} leaves {n_train} training rows for {p} columns; "
-                "use fewer folds, fewer terms, or (forward chaining) a larger first block"
+                f"held-out fold {test_labels[j]} leaves {n_fit} training rows (with positive "
+                f"weight) for {p} columns; use fewer folds, fewer terms, or (forward chaining) "
+                "a larger first block"
             )
-        sol = _solve_small(r_train, n_train)
+        sol = _solve_small(r_train, n_fit)
         params[j, sol.kept] = sol.coef
         sols.append((sol, n_train))
     coef = np.where(np.isnan(params), 0.0, params)
@@ -264,13 +277,14 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
                 "fold": int(test_labels[j]),
                 "n_train": n_train,
                 "n_test": int(tn[j]),
-                "rmse_test": float(np.sqrt(sse[j] / tw[j])),
+                "rmse_test": float(np.sqrt(sse[j] / tw[j])) if tw[j] > 0 else np.nan,
                 "rmse_train": float(np.sqrt(sol.ssr / w_train[j])),
                 "rank": sol.rank,
                 "aliased": tuple(names[i] for i in range(p) if i not in kept),
             }
         )
-    full = _solve_small(prefix[k], n)
+    full = _solve_small(prefix[k], int(npos.sum()))
+    scored = int(np.sum(tw > 0))
     per_fold = pd.DataFrame(rows)
     for arr in (folds, predictions, params):
         arr.flags.writeable = False  # results are immutable, like the dataclass holding them
@@ -279,8 +293,9 @@ def cross_validate(X, y, folds, *, weights=None, scheme="kfold", names=None) -> 
         k=k,
         folds=folds,
         rmse_train=float(np.sqrt(full.ssr / w_total)),
-        rmse_cv=float(np.sqrt(sse.sum() / tw.sum())),
-        rmse_cv_se=float(per_fold["rmse_test"].std(ddof=1) / np.sqrt(k)),
+        rmse_cv=float(np.sqrt(sse.sum() / tw.sum())) if tw.sum() > 0 else np.nan,
+        rmse_cv_se=(float(per_fold["rmse_test"].std(ddof=1) / np.sqrt(scored))
+                    if scored else np.nan),
         per_fold=per_fold,
         predictions=predictions,
         params=params,
@@ -481,10 +496,10 @@ def _check_inputs(X, y, folds, weights, names):
         w = np.asarray(weights, dtype=float)
         if w.shape != (n,):
             raise ValueError(f"weights must have one value per row ({n}), got shape {w.shape}")
-        if not np.all(np.isfinite(w)) or np.any(w <= 0):
+        if not np.all(np.isfinite(w)) or np.any(w < 0) or not np.any(w > 0):
             raise ValueError(
-                "weights must be finite and positive; drop rows with zero weight before "
-                "cross-validating"
+                "weights must be finite and non-negative with at least one positive; "
+                "check the weight column for missing or negative values"
             )
         sw = np.sqrt(w)
     if names is None:

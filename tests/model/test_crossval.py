@@ -130,6 +130,26 @@ def test_matches_statsmodels_refits(scheme, weighted):
     assert (pf["rank"] == 5).all() and (pf["aliased"] == ()).all()
 
 
+def test_zero_weights_take_no_part_but_are_predicted():
+    # statsmodels WLS with weight 0 drops a row's influence the same way (its whitened row is 0)
+    X, y, rng = _design(90, 3, seed=12)
+    w = rng.uniform(0.5, 2.0, 90)
+    w[rng.choice(90, 9, replace=False)] = 0.0
+    folds = make_folds(90, k=5, seed=3)
+    res = cross_validate(X, y, folds, weights=w)
+    ref = _naive(X, y, folds, "kfold", weights=w)
+    np.testing.assert_allclose(res.predictions, ref, rtol=1e-8)
+    assert np.isfinite(res.predictions[w == 0]).all()
+    assert res.rmse_cv == pytest.approx(_pooled(y, ref, w), rel=1e-8)
+    assert res.per_fold["n_test"].sum() == 90
+    # a fold with only zero-weight rows has no error of its own
+    w2 = np.where(folds == 0, 0.0, 1.0)
+    res2 = cross_validate(X, y, folds, weights=w2)
+    pf = res2.per_fold.set_index("fold")
+    assert np.isnan(pf.loc[0, "rmse_test"]) and np.isfinite(pf.loc[[1, 2, 3, 4], "rmse_test"]).all()
+    assert res2.rmse_cv_se == pytest.approx(pf["rmse_test"].iloc[1:].std(ddof=1) / 2, rel=1e-12)
+
+
 def test_forward_training_set_is_the_past_only():
     X, y, _ = _design(80, 3, seed=3)
     folds = make_folds(80, k=4, scheme="forward")
@@ -285,13 +305,15 @@ def test_hostile_inputs_raise_with_advice():
     Xn[5, 1] = np.nan
     with pytest.raises(ValueError, match="row 5"):
         cross_validate(Xn, y, f)
-    with pytest.raises(ValueError, match="finite and positive"):
-        cross_validate(X, y, f, weights=np.r_[0.0, np.ones(19)])
+    with pytest.raises(ValueError, match="finite and non-negative"):
+        cross_validate(X, y, f, weights=np.r_[-1.0, np.ones(19)])
+    with pytest.raises(ValueError, match="at least one positive"):
+        cross_validate(X, y, f, weights=np.zeros(20))
     with pytest.raises(ValueError, match="scheme must be one of"):
         cross_validate(X, y, f, scheme="shuffle")
     with pytest.raises(ValueError, match="rows labelled -1"):
         cross_validate(X, y, f, scheme="forward")
-    with pytest.raises(ValueError, match="leaves 2 training rows for 3 columns"):
+    with pytest.raises(ValueError, match="leaves 2 training rows"):
         cross_validate(X[:6], y[:6], np.array([-1, -1, 0, 0, 1, 1]), scheme="forward")
     with pytest.raises(ValueError, match="names has 2 entries"):
         cross_validate(X, y, f, names=["a", "b"])
