@@ -18,6 +18,7 @@ from __future__ import annotations
 
 from collections import OrderedDict
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -78,9 +79,14 @@ class TermColumns:
     values: np.ndarray  # (n, q) float64, C-contiguous
     design_info: DesignInfo  # for evaluating the same coding on new rows (holdout)
 
-    @property
+    @cached_property
     def finite(self) -> np.ndarray:
+        """Rows where every column of the term is finite (computed once per term)."""
         return np.isfinite(self.values).all(axis=1)
+
+    @cached_property
+    def all_finite(self) -> bool:
+        return bool(self.finite.all())
 
 
 def _coding_key(subterms) -> tuple:

@@ -129,8 +129,9 @@ class _Model:
         y = cache.response(study.response)
         blocks = [tc.values for tc in tcs]
         ok = np.isfinite(y)
-        for b in blocks:
-            ok &= np.isfinite(b).all(axis=1)
+        for tc in tcs:
+            if not tc.all_finite:
+                ok &= tc.finite
         w = None
         if study._weights is not None:
             w = study._weights[avail]
