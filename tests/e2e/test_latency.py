@@ -18,7 +18,8 @@ import time
 import nbformat
 import pytest
 
-from conftest import ARTIFACTS, VISIBLE, cell_errors, open_notebook, reports, run_all, shot
+from harness import (ARTIFACTS, VISIBLE, cell_errors, open_notebook, reports, run_all, shot,
+                     until)
 
 KERNEL = {"kernelspec": {"name": "python3", "display_name": "Python 3 (ipykernel)",
                          "language": "python"}}
@@ -65,16 +66,6 @@ def _write_notebook(lab, n: int) -> str:
     return name
 
 
-def _until(fn, *, timeout: float, what: str):
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        value = fn()
-        if value:
-            return value
-        time.sleep(0.3)
-    raise AssertionError(f"timed out after {timeout:.0f} s waiting for {what}")
-
-
 @pytest.mark.parametrize("n", SIZES, ids=[f"n{n}" for n in SIZES])
 def test_drop_to_redrawn_grid_and_meter(page, lab, request, n):
     budget = 120 + n / 1000  # seconds of kernel work allowed (the million-row case is slow)
@@ -83,9 +74,9 @@ def test_drop_to_redrawn_grid_and_meter(page, lab, request, n):
     run_all(page, timeout=budget * 1000)
     assert cell_errors(page) == []
     wb = page.locator(f"{VISIBLE} .jp-CodeCell").first.locator(".jp-OutputArea-output").first
-    _until(lambda: wb.locator(".bqplot.figure").count() > 0, timeout=budget, what="the grid")
+    until(lambda: wb.locator(".bqplot.figure").count() > 0, timeout=budget, what="the grid")
     chip = wb.locator(".afterfit-chip[data-tag=evident], .afterfit-chip[data-tag=stated]").first
-    _until(lambda: chip.count() > 0, timeout=budget, what="a stated or evident candidate")
+    until(lambda: chip.count() > 0, timeout=budget, what="a stated or evident candidate")
     term = chip.get_attribute("data-term")
     page.wait_for_timeout(2000)  # let the first drawing finish before the clock is armed
     wb.evaluate(_INSTALL)
@@ -95,11 +86,11 @@ def test_drop_to_redrawn_grid_and_meter(page, lab, request, n):
         chip.scroll_into_view_if_needed()
         started = time.monotonic()
         chip.drag_to(wb.locator(".afterfit-strip").first)
-        _until(lambda: len(probe.json("w.study.terms")) > len(before), timeout=budget,
+        until(lambda: len(probe.json("w.study.terms")) > len(before), timeout=budget,
                what=f"{term} to be added")
-        _until(lambda: not probe.json("w.busy"), timeout=budget, what="the Explorer to finish")
+        until(lambda: not probe.json("w.busy"), timeout=budget, what="the Explorer to finish")
         # quiet page: two seconds without any DOM change under the workbench
-        _until(lambda: page.evaluate(
+        until(lambda: page.evaluate(
             "() => performance.now() - window.__afterfitLatency.last > 2000"),
             timeout=budget, what="the page to stop redrawing")
         wall = time.monotonic() - started
@@ -111,7 +102,8 @@ def test_drop_to_redrawn_grid_and_meter(page, lab, request, n):
     assert marks["grid"] is not None, "the residual grid did not change after the drop"
     assert marks["meter"] is not None, "the fit meter did not change after the drop"
     assert marks["strip"] is not None, "the model strip did not change after the drop"
-    strip = [t.get_attribute("data-term") for t in wb.locator(".afterfit-strip .afterfit-term").all()]
+    items = wb.locator(".afterfit-strip .afterfit-term").all()
+    strip = [t.get_attribute("data-term") for t in items]
     assert strip == terms
     grid_ms = marks["grid"] - marks["drop"]
     meter_ms = marks["meter"] - marks["drop"]

@@ -1,4 +1,4 @@
-"""The workbench survives what happens to notebooks: a kernel restart, a page reload, a failing refit.
+"""The workbench survives what happens to notebooks: kernel restart, page reload, a failing refit.
 
 Each test writes its own small notebook into the server's folder (the example notebooks stay as
 they are).  The notebook keeps its Study in a file: it saves on every change and loads the file
@@ -6,11 +6,10 @@ when it exists, so "Restart Kernel and Run All Cells" must bring back the same m
 """
 from __future__ import annotations
 
-import time
-
 import nbformat
 
-from conftest import VISIBLE, cell_errors, open_notebook, run_all, shot, wait_idle
+from harness import (VISIBLE, cell_errors, open_notebook, run_all, settle, shot, until,
+                     wait_idle)
 
 KERNEL = {"kernelspec": {"name": "python3", "display_name": "Python 3 (ipykernel)",
                          "language": "python"}}
@@ -43,34 +42,13 @@ w
     return name
 
 
-def _until(fn, *, timeout: float = 60, what: str = "condition"):
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        value = fn()
-        if value:
-            return value
-        time.sleep(0.3)
-    raise AssertionError(f"timed out after {timeout} s waiting for {what}")
-
-
 def _workbench(page):
     return page.locator(f"{VISIBLE} .jp-CodeCell").first.locator(".jp-OutputArea-output").first
 
 
 def _strip_terms(wb) -> list[str]:
-    return [t.get_attribute("data-term") for t in wb.locator(".afterfit-strip .afterfit-term").all()]
-
-
-def _settle(probe, timeout: float = 120) -> None:
-    deadline = time.monotonic() + timeout
-    last = None
-    while time.monotonic() < deadline:
-        busy, count = probe.json("[w.busy, w.refresh_count]")
-        if not busy and count == last:
-            return
-        last = count if not busy else None
-        time.sleep(0.6)
-    raise AssertionError(f"the Explorer was still busy after {timeout} s")
+    items = wb.locator(".afterfit-strip .afterfit-term").all()
+    return [t.get_attribute("data-term") for t in items]
 
 
 def _add_stated_chip(page, probe) -> list[str]:
@@ -79,10 +57,10 @@ def _add_stated_chip(page, probe) -> list[str]:
     chip = wb.locator(".afterfit-chip[data-tag=stated]").first
     chip.scroll_into_view_if_needed()
     chip.drag_to(wb.locator(".afterfit-strip").first)
-    _until(lambda: len(probe.json("study.terms")) > len(before), what="the dragged term")
-    _settle(probe)
+    until(lambda: len(probe.json("study.terms")) > len(before), what="the dragged term")
+    settle(probe)
     terms = probe.json("study.terms")
-    _until(lambda: _strip_terms(wb) == terms, timeout=30, what="the model strip")
+    until(lambda: _strip_terms(wb) == terms, timeout=30, what="the model strip")
     return terms
 
 
@@ -110,7 +88,7 @@ def test_restart_and_run_all_restores_the_study(page, lab):
         assert probe.json("study.terms") == terms
         assert probe.json("len(study.steps)") == steps
         wb = _workbench(page)
-        _until(lambda: _strip_terms(wb) == terms, timeout=60, what="the restored model strip")
+        until(lambda: _strip_terms(wb) == terms, timeout=60, what="the restored model strip")
     finally:
         probe.close()
     shot(page, "robust-02-after-restart")
@@ -127,8 +105,8 @@ def test_reload_rerenders_the_live_workbench(page, lab):
     page.wait_for_selector(f"{VISIBLE} .jp-Cell", timeout=90_000)
     wait_idle(page)
     wb = _workbench(page)
-    _until(lambda: wb.locator(".bqplot.figure").count() > 0, timeout=90, what="the grid again")
-    _until(lambda: wb.locator(".afterfit-tray .afterfit-chip").count() > 0, timeout=90,
+    until(lambda: wb.locator(".bqplot.figure").count() > 0, timeout=90, what="the grid again")
+    until(lambda: wb.locator(".afterfit-tray .afterfit-chip").count() > 0, timeout=90,
            what="the tray again")
     shot(page, "robust-03-after-reload")
     probe = lab.probe(name)
@@ -161,10 +139,10 @@ def test_a_failing_refit_shows_a_message_and_the_workbench_keeps_working(page, l
         chip = wb.locator(".afterfit-chip[data-tag=stated]").first
         chip.scroll_into_view_if_needed()
         chip.locator("[data-action=add]").click()
-        _until(lambda: probe.json("len(w.errors)") > 0, what="the Explorer to record the error")
-        _settle(probe)
+        until(lambda: probe.json("len(w.errors)") > 0, what="the Explorer to record the error")
+        settle(probe)
         message = wb.get_by_text("injected failure in the least-squares solver").first
-        _until(lambda: message.is_visible(), timeout=30, what="the error message in the widget")
+        until(lambda: message.is_visible(), timeout=30, what="the error message in the widget")
         message.scroll_into_view_if_needed()
         shot(page, "robust-04-refit-error")
         assert probe.json("study.terms") == before

@@ -9,11 +9,11 @@ and the exported code's printed parameters with statsmodels' own fit run by that
 from __future__ import annotations
 
 import re
-import time
 
 import pytest
 
-from conftest import VISIBLE, cell_errors, open_notebook, run_all, shot, wait_idle
+from harness import (VISIBLE, cell_errors, open_notebook, run_all, settle, shot, until,
+                     wait_idle)
 
 NOTEBOOK = "tour.ipynb"
 WIDGET_CELL = "w = af.explore("
@@ -44,17 +44,9 @@ class Tour:
         """Evaluate ``expr`` in the notebook's kernel (JSON round trip)."""
         return self.probe.json(expr)
 
-    def settle(self, timeout: float = 120) -> None:
+    def settle(self) -> None:
         """Wait until the Explorer has no queued action and its refreshes have stopped."""
-        deadline = time.monotonic() + timeout
-        last = None
-        while time.monotonic() < deadline:
-            busy, count = self.k("[w.busy, w.refresh_count]")
-            if not busy and count == last:
-                return
-            last = count if not busy else None
-            time.sleep(0.6)
-        raise AssertionError(f"the Explorer was still busy after {timeout} s")
+        settle(self.probe)
 
     def header_text(self) -> str:
         return self.wb.locator(".widget-html").first.inner_text()
@@ -81,16 +73,6 @@ def tour(browser_context, lab):
         lab.delete_sessions()
 
 
-def _until(fn, *, timeout: float = 60, what: str = "condition"):
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        value = fn()
-        if value:
-            return value
-        time.sleep(0.3)
-    raise AssertionError(f"timed out after {timeout} s waiting for {what}")
-
-
 # ---------------------------------------------------------------------------------------------
 # stages
 # ---------------------------------------------------------------------------------------------
@@ -98,8 +80,8 @@ def test_01_run_all(tour):
     page = tour.page
     assert cell_errors(page) == []
     tour.wb.scroll_into_view_if_needed()
-    _until(lambda: tour.wb.locator(".bqplot.figure").count() > 0, what="the residual grid")
-    _until(lambda: tour.wb.locator(".afterfit-tray .afterfit-chip").count() > 0, what="the tray")
+    until(lambda: tour.wb.locator(".bqplot.figure").count() > 0, what="the residual grid")
+    until(lambda: tour.wb.locator(".afterfit-tray .afterfit-chip").count() > 0, what="the tray")
     shot(page, "tour-01-run-all")
     # the header shows the Study's own numbers
     n_rows, rmse = tour.k("[len(w.study.rows), w.study.fit.rmse]")
@@ -156,7 +138,7 @@ def test_02_brush_lists_exactly_the_rows_in_range(tour):
     page.mouse.down()
     page.mouse.move(x1, y1, steps=12)
     page.mouse.up()
-    _until(lambda: tour.k("len(w.inspector.rows)") > 0, what="the inspector to list rows")
+    until(lambda: tour.k("len(w.inspector.rows)") > 0, what="the inspector to list rows")
     tour.settle()
     expected = _expected_rows(tour, key)
     listed = tour.k("sorted(int(i) for i in w.inspector.rows)")
@@ -164,7 +146,7 @@ def test_02_brush_lists_exactly_the_rows_in_range(tour):
     assert listed == expected, (key, len(listed), len(expected))
     assert selected == expected
     n = len(expected)
-    _until(lambda: f"{n:,} row" in _inspector_count_text(tour), timeout=20,
+    until(lambda: f"{n:,} row" in _inspector_count_text(tour), timeout=20,
            what=f"the inspector to say {n} rows")
     tour.state["brushed"] = expected
     fig.scroll_into_view_if_needed()
@@ -189,13 +171,13 @@ def test_03_exclude_brushed_rows_changes_the_fit(tour):
     reason = "e2e: brushed band excluded to check the refit"
     wb.locator("input[placeholder^='Reason (required)']").fill(reason)
     wb.get_by_role("button", name="Exclude", exact=True).click()
-    _until(lambda: tour.k("len(w.study.excluded)") >= 3 + len(rows), what="the exclusion")
+    until(lambda: tour.k("len(w.study.excluded)") >= 3 + len(rows), what="the exclusion")
     tour.settle()
     excluded = tour.k("{int(k): v for k, v in w.study.excluded.items()}")
     assert all(excluded[str(r)] == reason for r in rows)
     n_used, rmse = tour.k("[len(w.study.rows), w.study.fit.rmse]")
     assert n_used == n_before - len(rows)
-    _until(lambda: f"{n_used:,} rows used" in tour.header_text(), timeout=20,
+    until(lambda: f"{n_used:,} rows used" in tour.header_text(), timeout=20,
            what="the header's row count")
     after = tour.header_text()
     assert _RMSE.search(after).group(1) == f"{rmse:.4g}" != rmse_before
@@ -226,12 +208,12 @@ def test_04_drag_stated_chip_refits_grid_and_meter(tour):
     term = _drag_chip(tour, "stated")
     # a chip may stand for several model terms (a cycle is a sine and a cosine)
     parts = tour.k(f"list(__import__('afterfit').model.terms.normalise_term({term!r}))")
-    _until(lambda: tour.k("w.study.terms") == terms_before + parts, what=f"{term} in the model")
+    until(lambda: tour.k("w.study.terms") == terms_before + parts, what=f"{term} in the model")
     tour.settle()
-    _until(lambda: _strip_terms(tour) == terms_before + parts, timeout=20, what="the model strip")
-    _until(lambda: wb.locator(".afterfit-meter").first.inner_text() != meter_before, timeout=20,
+    until(lambda: _strip_terms(tour) == terms_before + parts, timeout=20, what="the model strip")
+    until(lambda: wb.locator(".afterfit-meter").first.inner_text() != meter_before, timeout=20,
            what="the fit meter to change")
-    _until(lambda: wb.locator(".widget-gridbox").first.inner_text() != grid_before, timeout=20,
+    until(lambda: wb.locator(".widget-gridbox").first.inner_text() != grid_before, timeout=20,
            what="the residual grid to change")
     step = tour.k("[w.study.steps[-1].kind, w.study.steps[-1].tag]")
     assert step == ["add", "stated"]
@@ -245,17 +227,17 @@ def test_05_speculative_chip_asks_for_a_reason(tour):
     before = tour.k("w.study.terms")
     term = _drag_chip(tour, "speculative")
     prompt = wb.locator(".afterfit-reason").first
-    _until(lambda: prompt.is_visible(), timeout=20, what="the reason prompt")
+    until(lambda: prompt.is_visible(), timeout=20, what="the reason prompt")
     shot(tour.page, "tour-05-reason-prompt")
     assert tour.k("w.study.terms") == before  # nothing is added before a reason is given
     reason = "e2e: checking that a speculative term records its reason"
     wb.locator("[data-action=reason-input]").first.fill(reason)
     wb.locator("[data-action=reason-ok]").first.click()
-    _until(lambda: len(tour.k("w.study.terms")) > len(before), what=f"{term} in the model")
+    until(lambda: len(tour.k("w.study.terms")) > len(before), what=f"{term} in the model")
     tour.settle()
     last = tour.k("[w.study.steps[-1].tag, w.study.steps[-1].reason]")
     assert last == ["speculative", reason]
-    _until(lambda: _strip_terms(tour) == tour.k("w.study.terms"), timeout=20,
+    until(lambda: _strip_terms(tour) == tour.k("w.study.terms"), timeout=20,
            what="the model strip")
     shot(tour.page, "tour-06-speculative-added")
     tour.state["terms_with_speculative"] = tour.k("w.study.terms")
@@ -270,14 +252,14 @@ def test_06_undo_and_redo(tour):
     timeline = wb.locator(".afterfit-timeline").first
     timeline.scroll_into_view_if_needed()
     timeline.locator("[data-action=undo]").click()
-    _until(lambda: tour.k("w.study.terms") == without, what="the undo")
+    until(lambda: tour.k("w.study.terms") == without, what="the undo")
     tour.settle()
-    _until(lambda: _strip_terms(tour) == without, timeout=20, what="the strip after undo")
+    until(lambda: _strip_terms(tour) == without, timeout=20, what="the strip after undo")
     shot(tour.page, "tour-07-undo")
     timeline.locator("[data-action=redo]").click()
-    _until(lambda: tour.k("w.study.terms") == with_spec, what="the redo")
+    until(lambda: tour.k("w.study.terms") == with_spec, what="the redo")
     tour.settle()
-    _until(lambda: _strip_terms(tour) == with_spec, timeout=20, what="the strip after redo")
+    until(lambda: _strip_terms(tour) == with_spec, timeout=20, what="the strip after redo")
     shot(tour.page, "tour-08-redo")
 
 
@@ -316,12 +298,12 @@ def test_07_export_inserts_code_that_reproduces_the_fit(tour):
              if WIDGET_CELL in cells.nth(i).locator(".jp-InputArea-editor").inner_text()][0]
     button.scroll_into_view_if_needed()
     button.click()
-    _until(lambda: cells.count() == n_before + 1, timeout=30, what="a new cell")
+    until(lambda: cells.count() == n_before + 1, timeout=30, what="a new cell")
     new = cells.nth(index + 1)
     # the editor draws only the lines in view: read the new cell's source from the saved file
     page.locator(f"{VISIBLE} .jp-Notebook").first.click(position={"x": 5, "y": 5})
     page.keyboard.press("Control+s")
-    saved = _until(lambda: _saved_cells(tour.lab.root / NOTEBOOK, n_before + 1), timeout=30,
+    saved = until(lambda: _saved_cells(tour.lab.root / NOTEBOOK, n_before + 1), timeout=30,
                    what="the notebook to be saved with the new cell")
     source = saved[index + 1]
     assert "smf.ols(" in source and "print(result.params)" in source
@@ -332,7 +314,7 @@ def test_07_export_inserts_code_that_reproduces_the_fit(tour):
     page.keyboard.press("Escape")  # command mode, the new cell selected
     page.keyboard.press("Shift+Enter")
     wait_idle(page)
-    _until(lambda: "dtype" in new.locator(".jp-OutputArea").inner_text(), timeout=60,
+    until(lambda: "dtype" in new.locator(".jp-OutputArea").inner_text(), timeout=60,
            what="the exported cell's output")
     printed = _parse_series(new.locator(".jp-OutputArea").inner_text())
     study = tour.k("{str(k): float(v) for k, v in w.study.fit.params.items()}")
