@@ -115,7 +115,9 @@ class Candidate:
         if self.kind not in KINDS:
             raise ValueError(f"kind must be one of {', '.join(KINDS)}; got {self.kind!r}")
         if int(self.searched) < 1:
-            raise ValueError(f"searched counts positions tried and must be >= 1, got {self.searched}")
+            raise ValueError(
+                f"searched counts positions tried and must be >= 1, got {self.searched}"
+            )
 
 
 # --------------------------------------------------------------------------------------------
@@ -267,10 +269,7 @@ def catalogue(
             knots = np.unique(np.quantile(finite, _HINGE_QUANTILES))
             knots = knots[(knots > distinct[0]) & (knots < distinct[-1])]
             if knots.size:
-                best, tried = chooser.best(
-                    len(knots), lambda sl, k=knots: np.maximum(x[:, None] - k[None, sl], 0.0),
-                    default=_middle(knots),
-                )
+                best, tried = chooser.best(x, knots, "hinge", default=_middle(knots))
                 c = float(knots[best])
                 add(f"{lead}{_hinge_text(q, c)}", label=f"{shown}, bend near {c:.5g}",
                     kind="hinge", sources=(name,), stated=stated, grounds=grounds,
@@ -279,10 +278,7 @@ def catalogue(
             # only with complete times: I(t >= c) reads a missing time as "before"
             points = _change_points(finite, n_rows=n)
             if points.size:
-                best, tried = chooser.best(
-                    len(points), lambda sl, c=points: (x[:, None] >= c[None, sl]).astype(float),
-                    default=_middle(points),
-                )
+                best, tried = chooser.best(x, points, "step", default=_middle(points))
                 c = float(points[best])
                 add(f"I({q} >= {_num(c)})", label=f"step change in {shown} near {c:.5g}",
                     kind="step", sources=(name,), stated=stated, grounds=grounds,
@@ -456,17 +452,27 @@ def _change_points(t: np.ndarray, *, n_rows: int) -> np.ndarray:
 
 
 class _Chooser:
-    """Picks the column that explains most of the current residuals (for data-driven positions)."""
+    """Picks the hinge knot or step position that explains most of the current residuals.
+
+    For every position ``c`` at once: the column ``h_c`` (``max(x - c, 0)`` or ``x >= c``,
+    weighted) enters through ``X'h_c``, ``h_c'e`` and ``h_c'h_c``, which are suffix sums over the
+    rows sorted by ``x`` -- one sort and one pass per variable, whatever the number of positions.
+    The residual variation ``h_c`` explains is ``(h_c'e)^2 / (h_c'h_c - |R^-T X'h_c|^2)``
+    (``e`` is orthogonal to ``X``).  This picks a position; the test itself is exact.
+    """
 
     def __init__(self, n, *, resid, fit):
-        self.fit = fit
+        self.n = n
         self.e = None
         if fit is not None:
-            if fit.nobs != n:
+            if fit.X.shape[0] != n:
                 raise ValueError(
-                    f"fit= was made on {fit.nobs} rows but the frame has {n}; pass the analysis rows"
+                    f"fit= was made on {fit.X.shape[0]} rows but the frame has {n}; pass the "
+                    "analysis rows"
                 )
             self.e = fit.wresid
+            self.sw = fit.sqrt_w
+            self.fit = fit
         elif resid is not None:
             e = np.asarray(resid, dtype=float).ravel()
             if e.size != n:
@@ -474,48 +480,57 @@ class _Chooser:
                     f"resid= has {e.size} values but the frame has {n} rows; pass the residuals "
                     "of the analysis rows"
                 )
-            self.e = np.where(np.isfinite(e), e, 0.0)
+            e = np.where(np.isfinite(e), e, 0.0)
+            self.e = e - e.mean()  # against the mean only: a simple regression on each column
+            self.sw = None
+            self.fit = None
 
-    def best(self, k: int, columns, *, default: int) -> tuple[int, int]:
-        """Index of the best of ``k`` columns and how many were tried (1 when none were).
-
-        ``columns(slice)`` returns those columns as an (n, m) array; a few are built at a time
-        so memory stays flat at 10^6 rows.  Rows where the variable is missing count as 0.
-        """
+    def best(self, x, positions, kind, *, default: int) -> tuple[int, int]:
+        """Index of the best position and how many were tried (1 when none were)."""
+        k = len(positions)
         if self.e is None or k == 1:
             return (default if self.e is None else 0), 1
-        explained = np.full(k, -np.inf)
-        for lo in range(0, k, 8):
-            sl = slice(lo, min(lo + 8, k))
-            cols = columns(sl)
-            cols = np.where(np.isfinite(cols), cols, 0.0)
-            if self.fit is not None:
-                r = _residualise(self.fit, cols)
-                e = self.e
-            else:
-                r = cols - cols.mean(axis=0)
-                e = self.e - self.e.mean()
-            size = np.sqrt((cols**2).sum(axis=0))
-            norm2 = (r**2).sum(axis=0)
-            ok = norm2 > _NULL_SHARE * size**2
-            part = np.full(cols.shape[1], -np.inf)
-            part[ok] = (r[:, ok].T @ e) ** 2 / norm2[ok]
-            explained[sl] = part
-        if not np.isfinite(explained).any():
+        ok = np.isfinite(x)
+        if self.sw is not None:
+            ok &= self.sw > 0
+        rows = np.flatnonzero(ok)
+        centre = float(np.median(x[rows]))  # exact shift: keeps the sums below well scaled
+        order = rows[np.argsort(x[rows], kind="stable")]
+        xs = x[order] - centre
+        cs = np.asarray(positions, dtype=float) - centre
+        sw = np.ones(order.size) if self.sw is None else self.sw[order]
+        es = self.e[order]
+        if self.fit is not None and self.fit.rank:
+            ls = self.fit
+            Xs = ls.X[order][:, ls.kept] * sw[:, None]
+            Rinv = ls.Rinv
+        else:
+            Xs = sw[:, None]
+            Rinv = np.array([[1.0 / math.sqrt(float(sw @ sw))]])
+        # rows at or above each position (hinge: above; the difference is a zero term)
+        start = np.searchsorted(xs, cs, side="left")
+
+        def suffix(v):
+            tot = np.concatenate([np.cumsum(v[::-1], axis=0)[::-1], np.zeros((1,) + v.shape[1:])])
+            return tot[start]
+
+        if kind == "step":
+            Xh = suffix(Xs * sw[:, None])
+            he = suffix(sw * es)
+            hh = suffix(sw * sw)
+        else:
+            Xh = suffix(Xs * (sw * xs)[:, None]) - cs[:, None] * suffix(Xs * sw[:, None])
+            he = suffix(sw * es * xs) - cs * suffix(sw * es)
+            hh = (suffix(sw * sw * xs * xs) - 2 * cs * suffix(sw * sw * xs)
+                  + cs**2 * suffix(sw * sw))
+        proj = Xh @ Rinv  # rows: (R^-T X'h_c)'
+        norm2 = hh - (proj**2).sum(axis=1)
+        good = norm2 > _NULL_SHARE * np.maximum(hh, 0)
+        if not good.any():
             return default, 1
+        explained = np.full(k, -np.inf)
+        explained[good] = he[good] ** 2 / norm2[good]
         return int(np.argmax(explained)), k
-
-
-def _residualise(ls, Z: np.ndarray) -> np.ndarray:
-    """Weighted ``Z`` made orthogonal to the fit's weighted design (one projection)."""
-    Xk = ls.X[:, ls.kept]
-    if ls.sqrt_w is not None:
-        Xk = Xk * ls.sqrt_w[:, None]
-        Z = Z * ls.sqrt_w[:, None]
-    if ls.rank == 0:
-        return Z
-    C = ls.Rinv @ (ls.Rinv.T @ (Xk.T @ Z))
-    return Z - Xk @ C
 
 
 # --------------------------------------------------------------------------------------------
@@ -634,7 +649,7 @@ def score_candidates(
         e2 = ls.ssr
         for i, (expl, q) in results.items():
             if q == 0:
-                notes[i] = "adds nothing beyond the current model (all its columns are already in it)"
+                notes[i] = "adds nothing beyond the current model (its columns are already in it)"
                 continue
             den_df = ls.df_resid - q
             if den_df <= 0:
@@ -735,7 +750,7 @@ class _Engine:
         return offs, int(offs[-1])
 
     def _chunk(self, idx, offs, width, s, shift, extra=0):
-        """Weighted rows s of the design and of the (shifted) blocks, plus ``extra`` spare columns."""
+        """Weighted rows s of the design and of the (shifted) blocks, plus ``extra`` columns."""
         Xc = self.X[s]
         # column-major: each block's columns are written (and later read) contiguously
         Zc = np.empty((width + extra, Xc.shape[0])).T
@@ -1148,7 +1163,10 @@ def pattern_scores(resid, variables, *, bins: int = 10, weights=None) -> pd.Data
         raise TypeError("variables must be a DataFrame or a mapping of name to values")
     rows = []
     for name, values in items:
-        s = pd.Series(values) if not isinstance(values, pd.Series) else values.reset_index(drop=True)
+        if isinstance(values, pd.Series):
+            s = values.reset_index(drop=True)
+        else:
+            s = pd.Series(values)
         if len(s) != n:
             raise ValueError(f"variable {name!r} has {len(s)} values but resid has {n}")
         codes, kind, _ = _bin_codes(s, bins)
@@ -1172,7 +1190,8 @@ def binned_means(x, resid, *, bins: int = 10) -> pd.DataFrame:
         One row per non-empty bin in order: ``centre`` (mean of x in the bin; the level for a
         categorical), ``mean``, ``lower`` and ``upper`` (mean ± t(0.975, count - 1) · sd /
         √count; NaN for a bin of one row), ``count``, and the bin's ``left``/``right`` x range
-        (NaN for categoricals).
+        (NaN for categoricals).  Datetimes are binned as numbers: ``centre``, ``left`` and
+        ``right`` are then nanoseconds since 1970 (``pd.to_datetime`` turns them back).
     """
     e = _vector(resid, "resid")
     s = pd.Series(x) if not isinstance(x, pd.Series) else x.reset_index(drop=True)
@@ -1218,6 +1237,10 @@ def _bin_codes(s: pd.Series, bins: int):
     """Bin index per row (-1 when missing), the kind, and the bin labels."""
     if int(bins) < 2:
         raise ValueError(f"bins must be at least 2, got {bins!r}")
+    if pd.api.types.is_datetime64_any_dtype(s.dtype):
+        # times bin like numbers (nanoseconds); missing times stay missing
+        s = pd.Series(np.where(s.isna(), np.nan, s.to_numpy().astype("datetime64[ns]")
+                               .astype(np.int64).astype(float)))
     if _is_numeric(s):
         x = _as_float(s)
         fin = np.isfinite(x)

@@ -60,7 +60,8 @@ def _frame(n=240, seed=7):
 def _fit(formula, df, weights=None):
     y, X = patsy.dmatrices(formula, df, NA_action="raise")
     w = None if weights is None else df[weights].to_numpy()
-    return fit_ols(np.asarray(X), np.asarray(y).ravel(), weights=w, names=X.design_info.column_names)
+    return fit_ols(np.asarray(X), np.asarray(y).ravel(), weights=w,
+                   names=X.design_info.column_names)
 
 
 def _block(term, df):

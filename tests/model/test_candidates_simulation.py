@@ -16,7 +16,8 @@ data sets.
 The covariates of each case are drawn once and kept (the study is conditional on the design);
 each seed draws new normal errors (sd 1).  Effect sizes are chosen so that the planted term is
 clearly present but not overwhelming.  A data-chosen step pays a Bonferroni factor for the
-positions searched, so the step case needs a shift of 2.5 error sd to reach 90 % reliably.  Run the file as a script to print the rates for the README:
+positions searched, so the step case needs a shift of 2.5 error sd to reach 90 % reliably
+(about 94 % at 2 sd).  Run the file as a script to print the rates for the README:
 ``python tests/model/test_candidates_simulation.py``.
 """
 from __future__ import annotations
