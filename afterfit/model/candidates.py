@@ -567,7 +567,8 @@ def score_candidates(
     DataFrame
         One row per block, in order: ``statistic`` (F), ``df_num`` (new columns counted),
         ``df_den``, ``pvalue`` (after the search correction), ``p_adjusted``, ``reject``
-        (``p_adjusted < alpha``), ``note`` (why a number is missing, or how it was corrected).
+        (``p_adjusted < alpha``), ``note`` (why a number is missing, or how it was corrected),
+        ``pvalue_raw`` (before the search correction) and ``searched``.
         ``attrs``: ``examined`` (candidates that received a p-value), ``method``, ``alpha``.
 
     Notes
@@ -616,6 +617,7 @@ def score_candidates(
     dfn = np.full(m, np.nan)
     dfd = np.full(m, np.nan)
     pval = np.full(m, np.nan)
+    praw = np.full(m, np.nan)
     notes = [""] * m
 
     todo = []
@@ -659,6 +661,7 @@ def score_candidates(
             F = (expl / q) / (rest / den_df) if rest > 0 else np.inf
             stat[i], dfn[i], dfd[i] = F, q, den_df
             p = float(special.fdtrc(q, den_df, F))
+            praw[i] = p
             if searched[i] > 1:
                 p = min(1.0, p * searched[i])
                 notes[i] = (
@@ -677,6 +680,8 @@ def score_candidates(
             "p_adjusted": padj,
             "reject": padj < alpha,
             "note": notes,
+            "pvalue_raw": praw,
+            "searched": searched,
         }
     )
     out.attrs.update(examined=int(np.isfinite(pval).sum()), method=method, alpha=alpha)
@@ -1019,7 +1024,8 @@ def rank_candidates(cands: Sequence[Candidate], scores: pd.DataFrame, *, alpha: 
     scores : DataFrame
         From :func:`score_candidates`, one row per candidate in the same order.  A
         ``delta_cv`` column, if present (e.g. from :func:`delta_cv`), is carried over;
-        otherwise ``delta_cv`` is NaN.
+        otherwise ``delta_cv`` is NaN.  If the scores were computed without the candidates'
+        ``searched`` counts, the search correction and the adjustment are applied here.
     alpha : float
         A candidate that is not stated is ``evident`` when ``p_adjusted < alpha``.
 
@@ -1038,7 +1044,7 @@ def rank_candidates(cands: Sequence[Candidate], scores: pd.DataFrame, *, alpha: 
             f"{len(cands)} candidates but {len(scores)} score rows; score the candidates' "
             "blocks in the same order"
         )
-    sc = scores.reset_index(drop=True)
+    sc = _search_corrected(cands, scores.reset_index(drop=True))
     padj = sc["p_adjusted"].to_numpy(dtype=float)
     tags = []
     for c, pa in zip(cands, padj):
@@ -1078,6 +1084,32 @@ def rank_candidates(cands: Sequence[Candidate], scores: pd.DataFrame, *, alpha: 
     out.attrs.update(scores.attrs)
     out.attrs["alpha"] = alpha
     return out
+
+
+def _search_corrected(cands, sc: pd.DataFrame) -> pd.DataFrame:
+    """Scores with each candidate's search correction applied, whatever the caller passed.
+
+    A data-chosen position (``Candidate.searched > 1``) must pay its Bonferroni factor; if the
+    scores were computed without it (or with other counts), p-values and their adjustment are
+    redone here from the uncorrected p-values, so a tag is never based on an optimistic number.
+    """
+    want = np.array([c.searched for c in cands], dtype=int)
+    have = sc["searched"].to_numpy(dtype=int) if "searched" in sc else np.ones(len(sc), int)
+    if (want == have).all():
+        return sc
+    raw = sc["pvalue_raw"] if "pvalue_raw" in sc else sc["pvalue"]
+    raw = raw.to_numpy(dtype=float)
+    sc = sc.copy()
+    sc["pvalue"] = np.minimum(1.0, raw * want)
+    sc["p_adjusted"] = adjust_pvalues(sc["pvalue"], method=sc.attrs.get("method", "holm"))
+    sc["searched"] = want
+    notes = sc["note"].astype(str).tolist() if "note" in sc else [""] * len(sc)
+    for i, k in enumerate(want):
+        if k > 1 and np.isfinite(raw[i]):
+            notes[i] = (f"position chosen from the data among {k}; p-value multiplied "
+                        f"by {k} (Bonferroni)")
+    sc["note"] = notes
+    return sc
 
 
 def delta_cv(X, y, folds, blocks, *, top: int = 10, weights=None, scheme: str = "kfold"):

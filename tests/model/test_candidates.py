@@ -550,3 +550,21 @@ def test_zero_weight_rows_take_no_part():
         F, p, d = _reference("y ~ x + z", term, kept, weights="w")
         np.testing.assert_allclose([row.statistic, row.pvalue], [F, p], rtol=1e-8)
         assert row.df_den == len(kept) - 3 - 1
+
+
+def test_rank_applies_a_missing_search_correction():
+    # scoring without searched= must not let a data-chosen step look better than it is
+    df = _frame()
+    formula = "y ~ x + t"
+    ls = _fit(formula, df)
+    cands = _catalogue(df, formula, Declarations.build(df.columns, time="t"), ls=ls, skip=("w",))
+    blocks = [_block(c.term, df) for c in cands]
+    right = rank_candidates(cands, score_candidates(ls, blocks,
+                                                    searched=[c.searched for c in cands]))
+    forgot = rank_candidates(cands, score_candidates(ls, blocks))
+    pd.testing.assert_frame_equal(right, forgot)
+    step = right[right.kind == "step"].iloc[0]
+    searched = next(c.searched for c in cands if c.kind == "step")
+    assert searched > 1
+    _, p, _ = _reference(formula, step.term, df)  # source: statsmodels compare_f_test
+    np.testing.assert_allclose(step.pvalue, min(1.0, p * searched), rtol=1e-8)
