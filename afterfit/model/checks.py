@@ -61,6 +61,8 @@ _SMALL_N = 30
 _SMALL_N_JB = 100  # the chi-square behind Jarque-Bera is known to be poor well past n = 30
 # VIF above this is called high: common practice (Marquardt 1970), not a test.
 _VIF_HIGH = 10.0
+# Multiply-adds per matrix product below which OpenBLAS stays on one thread (see _gram).
+_GEMM_SINGLE = 262_144
 # Block length of the recursive-residual recursion (see _recursive_residuals).
 _HC_BLOCK = 96
 
@@ -382,6 +384,31 @@ def _constant_columns(X: np.ndarray) -> np.ndarray:
     return np.array([j for j in cand if np.all(X[:, j] == X[0, j])], dtype=int)
 
 
+def _gram(Z: np.ndarray) -> np.ndarray:
+    """``Z'Z`` for a C-ordered chunk, as a sum of products over short row blocks.
+
+    OpenBLAS runs a matrix product on one thread when it has fewer than about 2.6e5
+    multiply-adds per thread, and threads it above that.  On a busy machine the threaded path is
+    several times slower (threads wait for each other); row blocks sized under the limit keep
+    every product on one thread, cost about the same on an idle machine, and fix the summation
+    order so results are reproducible.
+    """
+    rows, K = Z.shape
+    b = max(8, _GEMM_SINGLE // (K * K))
+    nb = rows // b
+    G = np.zeros((K, K))
+    if nb:
+        A = Z[: nb * b].reshape(nb, b, K)
+        step = max(1, (1 << 21) // (K * K))  # bounds the stacked products to ~16 MB
+        for s in range(0, nb, step):
+            As = A[s:s + step]
+            G += np.matmul(As.transpose(0, 2, 1), As).sum(axis=0)
+    tail = Z[nb * b:]
+    if tail.shape[0]:
+        G += tail.T @ tail
+    return G
+
+
 def _chunks(n: int, size: int = _CHUNK):
     for s in range(0, n, size):
         yield slice(s, min(n, s + size))
@@ -565,9 +592,8 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
     sums = np.zeros(ncol)
     shift = None
     for sl in _chunks(n):
-        # column-major chunk: the Gram product below is several times faster on it
-        xs = np.asfortranarray((Xn[sl] - mu) / sd)
-        Z = np.empty((xs.shape[0], ncol), order="F")
+        xs = (Xn[sl] - mu) / sd
+        Z = np.empty((xs.shape[0], ncol))
         Z[:, :m] = xs
         off = m
         for i in range(m):
@@ -579,7 +605,7 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
             # shifting by the first chunk's means keeps the later centring free of cancellation
             shift = Z.mean(axis=0)
         Z -= shift
-        G += Z.T @ Z
+        G += _gram(Z)
         sums += Z.sum(axis=0)
     mean_dev = sums / n
     Gc = G - n * np.outer(mean_dev, mean_dev)
