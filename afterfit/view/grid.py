@@ -344,8 +344,8 @@ def build_panel(snap: _Snapshot, key: str, title: str) -> PanelData:
             ranks = np.empty(m)
             ranks[np.argsort(y[ok], kind="stable")] = np.arange(1, m + 1)
             x[ok] = stats.norm.ppf((ranks - 0.375) / (m + 0.25))
-        lo, hi = _range(x, y)
-        line = np.linspace(lo, hi, 2)
+        # the line y = x across the normal quantiles drawn
+        line = np.linspace(*_range(x, pad=0.0), 2)
         return PanelData(key, title, "scatter", x, y, "normal quantile",
                          "studentized residual (external)", score, guides=((line, line),))
     if key == "spread":
@@ -429,11 +429,12 @@ class PanelView:
         sc = {"x": self.xs, "y": self.ys}
         self.x_axis = bq.Axis(scale=self.xs, label="", grid_color=PALETTE["grid"],
                               color=PALETTE["axis"], label_color=PALETTE["axis"],
-                              tick_style=_TICK_STYLE, label_offset="32px")
+                              tick_style=_TICK_STYLE, label_offset="32px", num_ticks=6,
+                              tick_format="~g")
         self.y_axis = bq.Axis(scale=self.ys, side="left", label="",
                               grid_color=PALETTE["grid"], color=PALETTE["axis"],
                               label_color=PALETTE["axis"], tick_style=_TICK_STYLE,
-                              label_offset="-40px")
+                              label_offset="42px", tick_format="~g")
         self.shade_scale = bq.ColorScale(min=0.0, max=1.0, colors=list(PALETTE["density"]))
         self.density = bq.HeatMap(color=np.zeros((2, 2), dtype=np.float32),
                                   x=np.array([0.0, 1.0]), y=np.array([0.0, 1.0]),
@@ -452,12 +453,13 @@ class PanelView:
                                visible=False)
         self.smooth = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)), scales=sc,
                                colors=[PALETTE["smoother"]], stroke_width=2.2, visible=False)
-        marks: list = [self.density, self.band, self.guides, self.smooth]
+        # the smoother is drawn over the dots: it is the summary the eye should find first
+        marks: list = [self.density, self.band, self.guides]
         if kind == "bars":
             self.dots = bq.Bars(x=np.zeros(1), y=np.zeros(1), scales=sc,
                                 colors=[PALETTE["bar"]], padding=0.35, stroke_width=0)
             self.highlight = None
-            marks.append(self.dots)
+            marks += [self.dots, self.smooth]
         else:
             self.dots = bq.Scatter(
                 x=np.zeros(0), y=np.zeros(0), scales=sc, colors=[PALETTE["dot"]],
@@ -468,7 +470,7 @@ class PanelView:
             self.highlight = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc,
                                         colors=[PALETTE["selected"]], opacities=[0.85],
                                         default_size=16, stroke_width=0)
-            marks += [self.dots, self.highlight]
+            marks += [self.dots, self.smooth, self.highlight]
         self.brush = None
         if kind != "bars":
             self.brush = bq.interacts.BrushSelector(x_scale=self.xs, y_scale=self.ys,
@@ -477,7 +479,7 @@ class PanelView:
         self.figure = bq.Figure(
             marks=marks, axes=[self.x_axis, self.y_axis], title="", title_style=_TITLE_STYLE,
             background_style={"fill": PALETTE["paper"]}, interaction=self.brush,
-            fig_margin={"top": 30, "bottom": 44, "left": 56, "right": 14},
+            fig_margin={"top": 30, "bottom": 44, "left": 60, "right": 16},
             padding_x=0.0, padding_y=0.0, animation_duration=0,
             layout=W.Layout(width="100%", height="280px"),
         )
@@ -494,6 +496,7 @@ class PanelView:
         self.box = W.VBox([header, self.figure], layout=W.Layout(
             border=f"1px solid {PALETTE['panel_border']}", margin="0", padding="0",
             min_width="300px"))
+        self.box.add_class("afterfit-panel")  # a stable hook for the browser tests
 
     # -- data ---------------------------------------------------------------------------------
     def show(self, data: PanelData, drawn: DrawnPoints) -> None:
@@ -512,8 +515,6 @@ class PanelView:
         if data.smoother is not None:
             band_y = [data.smoother["lower"].to_numpy(), data.smoother["upper"].to_numpy()]
         y_range = _range(y, *band_y, *(np.zeros(1),) if data.kind == "bars" else ())
-        if data.kind == "scatter" and data.key == "qq":
-            x_range = y_range = _range(x, y)
         widgets = [self.density, self.band, self.guides, self.smooth, self.dots]
         if self.highlight is not None:
             widgets.append(self.highlight)
@@ -523,6 +524,10 @@ class PanelView:
             self.xs.min, self.xs.max = float(x_range[0]), float(x_range[1])
             self.ys.min, self.ys.max = float(y_range[0]), float(y_range[1])
             self.figure.title = data.title
+            # long titles get a smaller font rather than being cut at the panel's edge
+            size = "13px" if len(data.title) <= 34 else "11px"
+            if self.figure.title_style.get("font-size") != size:
+                self.figure.title_style = {**_TITLE_STYLE, "font-size": size}
             self.x_axis.label = data.x_label
             self.y_axis.label = data.y_label
             if data.kind == "strip":
@@ -712,6 +717,7 @@ class ResidualGrid(W.VBox):
     def __init__(self, study: Any, *, run: Callable | None = None, budget: int = 500,
                  max_panels: int = 12, seed: int | None = None):
         super().__init__(layout=W.Layout(width="100%"))
+        self.add_class("afterfit-grid")  # a stable hook for the browser tests
         self._study = study
         self._run = run
         self.budget = int(budget)
