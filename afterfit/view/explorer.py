@@ -148,6 +148,11 @@ class Explorer(W.VBox):
             ], layout=W.Layout(width="100%", flex_flow="row wrap", **section)),
             W.Box([self.export], layout=W.Layout(width="100%", **section)),
         ]
+        # stable hooks for the browser tests (tests/e2e): class names only
+        self.add_class("afterfit-explorer")
+        self.header.add_class("afterfit-header")
+        self.status_text.add_class("afterfit-status-line")
+        self.message.add_class("afterfit-message")
         self._refresh_header()
         # a weak reference: a forgotten Explorer must not live as long as its Study
         ref = weakref.ref(self)

@@ -135,6 +135,12 @@ class RowInspector(W.VBox):
         self.include_button = W.Button(description="Include back", disabled=True,
                                        layout=W.Layout(width="auto"))
         self.message = W.Label("", style={"text_color": "#b8433a"})
+        # stable hooks for the browser tests (tests/e2e): class names only
+        self.add_class("afterfit-inspector")
+        self.count.add_class("afterfit-inspector-count")
+        self.exclude_button.add_class("afterfit-exclude")
+        self.reason.add_class("afterfit-exclude-reason")
+        self.confirm.add_class("afterfit-exclude-confirm")
         self.sort_by.observe(lambda _c: self._render(), names=["value"])
         self.descending.observe(lambda _c: self._render(), names=["value"])
         self.list.observe(lambda _c: self._update_buttons(), names=["value"])
