@@ -87,9 +87,19 @@ def run(n: int, *, n_candidates: int = 50, repeat: int = 3) -> list[dict]:
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="n = 10^5 instead of 10^6")
+    ap.add_argument("--threads", type=int, default=0,
+                    help="BLAS threads (0: library default); 1 gives steadier ratios on a "
+                         "shared machine (needs threadpoolctl)")
     args = ap.parse_args(argv)
     n = 100_000 if args.quick else 1_000_000
-    rows = run(n)
+    if args.threads:
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(args.threads):
+            rows = run(n)
+    else:
+        rows = run(n)
+    print(f"BLAS threads: {args.threads or 'default'}")
     print("| n | step | seconds | × base fit |")
     print("|---|---|---|---|")
     for r in rows:
