@@ -108,6 +108,9 @@ def test_drop_to_redrawn_grid_and_meter(page, lab, request, n):
     grid_ms = marks["grid"] - marks["drop"]
     meter_ms = marks["meter"] - marks["drop"]
     shot(page, f"latency-{n}")
+    # the grid after the refit: at large n, sampled dots over a density layer of every row
+    wb.locator(".afterfit-grid .afterfit-panel").first.scroll_into_view_if_needed()
+    shot(page, f"latency-{n}-grid")
     result = {"rows": n, "term": term, "drop_to_grid_ms": round(grid_ms),
               "drop_to_meter_ms": round(meter_ms), "drop_to_idle_s": round(wall - 2.0, 2),
               "cpus": os.cpu_count(), "load_1min": round(os.getloadavg()[0], 2)}

@@ -141,8 +141,9 @@ def test_a_failing_refit_shows_a_message_and_the_workbench_keeps_working(page, l
         chip.locator("[data-action=add]").click()
         until(lambda: probe.json("len(w.errors)") > 0, what="the Explorer to record the error")
         settle(probe)
-        message = wb.get_by_text("injected failure in the least-squares solver").first
-        until(lambda: message.is_visible(), timeout=30, what="the error message in the widget")
+        message = wb.locator(".afterfit-message").first
+        until(lambda: "injected failure in the least-squares solver" in message.inner_text(),
+              timeout=30, what="the error message in the widget")
         message.scroll_into_view_if_needed()
         shot(page, "robust-04-refit-error")
         assert probe.json("study.terms") == before

@@ -49,7 +49,7 @@ class Tour:
         settle(self.probe)
 
     def header_text(self) -> str:
-        return self.wb.locator(".widget-html").first.inner_text()
+        return self.wb.locator(".afterfit-header").first.inner_text()
 
 
 @pytest.fixture(scope="module")
@@ -117,15 +117,13 @@ _m = (_x >= _x0) & (_x <= _x1) & (_f.resid >= _y0) & (_f.resid <= _y1)
 
 
 def _inspector_count_text(tour) -> str:
-    label = tour.page.locator(".widget-label", has_text="Row inspector").first
-    row = tour.wb.locator(".widget-hbox", has=label).first
-    return row.inner_text()
+    return tour.wb.locator(".afterfit-inspector-count").first.inner_text()
 
 
 def test_02_brush_lists_exactly_the_rows_in_range(tour):
     key, idx = _panel_for_brush(tour)
     tour.state["brush_key"] = key
-    fig = tour.wb.locator(".bqplot.figure").nth(idx)
+    fig = tour.wb.locator(".afterfit-grid .afterfit-panel").nth(idx).locator(".bqplot.figure")
     fig.scroll_into_view_if_needed()
     overlay = fig.locator("rect.overlay").first
     box = overlay.bounding_box()
@@ -151,7 +149,7 @@ def test_02_brush_lists_exactly_the_rows_in_range(tour):
     tour.state["brushed"] = expected
     fig.scroll_into_view_if_needed()
     shot(page, "tour-02-brush")
-    tour.wb.locator(".widget-label", has_text="Row inspector").first.scroll_into_view_if_needed()
+    tour.wb.locator(".afterfit-inspector").first.scroll_into_view_if_needed()
     shot(page, "tour-02b-inspector")
 
 
@@ -167,10 +165,10 @@ def test_03_exclude_brushed_rows_changes_the_fit(tour):
     n_before = int(_ROWS_USED.search(before).group(1).replace(",", ""))
     rmse_before = _RMSE.search(before).group(1)
     wb = tour.wb
-    wb.locator("button", has_text="Exclude selected (").click()
+    wb.locator(".afterfit-exclude").first.click()
     reason = "e2e: brushed band excluded to check the refit"
-    wb.locator("input[placeholder^='Reason (required)']").fill(reason)
-    wb.get_by_role("button", name="Exclude", exact=True).click()
+    wb.locator(".afterfit-exclude-reason input").first.fill(reason)
+    wb.locator(".afterfit-exclude-confirm").first.click()
     until(lambda: tour.k("len(w.study.excluded)") >= 3 + len(rows), what="the exclusion")
     tour.settle()
     excluded = tour.k("{int(k): v for k, v in w.study.excluded.items()}")
@@ -181,7 +179,7 @@ def test_03_exclude_brushed_rows_changes_the_fit(tour):
            what="the header's row count")
     after = tour.header_text()
     assert _RMSE.search(after).group(1) == f"{rmse:.4g}" != rmse_before
-    tour.cell.locator(".widget-html").first.scroll_into_view_if_needed()
+    wb.locator(".afterfit-header").first.scroll_into_view_if_needed()
     shot(tour.page, "tour-03-excluded")
 
 
@@ -202,7 +200,7 @@ def _drag_chip(tour, tag: str) -> str:
 
 def test_04_drag_stated_chip_refits_grid_and_meter(tour):
     wb = tour.wb
-    grid_before = wb.locator(".widget-gridbox").first.inner_text()
+    grid_before = wb.locator(".afterfit-grid").first.inner_text()
     meter_before = wb.locator(".afterfit-meter").first.inner_text()
     terms_before = tour.k("w.study.terms")
     term = _drag_chip(tour, "stated")
@@ -213,7 +211,7 @@ def test_04_drag_stated_chip_refits_grid_and_meter(tour):
     until(lambda: _strip_terms(tour) == terms_before + parts, timeout=20, what="the model strip")
     until(lambda: wb.locator(".afterfit-meter").first.inner_text() != meter_before, timeout=20,
            what="the fit meter to change")
-    until(lambda: wb.locator(".widget-gridbox").first.inner_text() != grid_before, timeout=20,
+    until(lambda: wb.locator(".afterfit-grid").first.inner_text() != grid_before, timeout=20,
            what="the residual grid to change")
     step = tour.k("[w.study.steps[-1].kind, w.study.steps[-1].tag]")
     assert step == ["add", "stated"]
