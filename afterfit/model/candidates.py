@@ -203,8 +203,9 @@ def catalogue(
     time = _resolve_time(frame, declarations, time)
     chooser = _Chooser(n, resid=resid, fit=fit)
 
+    cols_key = tuple(columns)
     skipped = set(skip)
-    skipped.update(term_variables(response, columns) if isinstance(response, str) else ())
+    skipped.update(_variables(response, cols_key) if isinstance(response, str) else ())
     if isinstance(response, str) and response in columns:
         skipped.add(response)
     if declarations.time is not None and time is not None and time != declarations.time:
@@ -213,7 +214,7 @@ def catalogue(
     model = _TermSet(model_terms)
     in_model: list[str] = []
     for t in model_terms:
-        for v in term_variables(t, columns):
+        for v in _variables(t, cols_key):
             if v not in in_model:
                 in_model.append(v)
 
@@ -356,6 +357,11 @@ class _TermSet:
 
     def new_terms(self, text) -> list[str]:
         return [t.name() for t in _parse_terms(text) if t not in self.terms]
+
+
+@functools.lru_cache(maxsize=1024)
+def _variables(term: str, columns: tuple) -> tuple:
+    return tuple(term_variables(term, columns))
 
 
 @functools.lru_cache(maxsize=4096)
