@@ -429,8 +429,7 @@ class PanelView:
         sc = {"x": self.xs, "y": self.ys}
         self.x_axis = bq.Axis(scale=self.xs, label="", grid_color=PALETTE["grid"],
                               color=PALETTE["axis"], label_color=PALETTE["axis"],
-                              tick_style=_TICK_STYLE, label_offset="32px", num_ticks=6,
-                              tick_format="~g")
+                              tick_style=_TICK_STYLE, label_offset="32px", tick_format="~g")
         self.y_axis = bq.Axis(scale=self.ys, side="left", label="",
                               grid_color=PALETTE["grid"], color=PALETTE["axis"],
                               label_color=PALETTE["axis"], tick_style=_TICK_STYLE,
@@ -538,6 +537,9 @@ class PanelView:
                 self.x_axis.tick_labels = {str(int(t)): _short(data.levels[int(t)]) for t in ticks}
             elif data.kind == "bars":
                 self.x_axis.tick_format = "d"
+            else:
+                # about five round ticks: a panel is narrow and long labels would run together
+                self.x_axis.tick_values = _round_ticks(*x_range)
             self._show_guides(guide_x, guide_y)
             self._show_smoother(data)
             if data.kind == "bars":
@@ -675,6 +677,19 @@ class _held:
         while self.contexts:
             self.contexts.pop().__exit__(*exc)
         return False
+
+
+def _round_ticks(lo: float, hi: float, n: int = 5) -> np.ndarray:
+    """About ``n`` ticks at multiples of 1, 2 or 5 times a power of ten inside [lo, hi]."""
+    span = hi - lo
+    if not (np.isfinite(span) and span > 0):
+        return np.array([lo])
+    power = 10.0 ** math.floor(math.log10(span / n))
+    step = min((m * power for m in (1, 2, 2.5, 5, 10)), key=lambda st: abs(span / st - n))
+    first = math.ceil(lo / step) * step
+    ticks = np.arange(first, hi + step * 1e-9, step)
+    # drop the rounding noise of the multiplication (0.30000000000000004 -> 0.3)
+    return np.round(ticks, max(0, -math.floor(math.log10(step)) + 2))
 
 
 def _short(text: str, k: int = 16) -> str:
@@ -840,7 +855,9 @@ class ResidualGrid(W.VBox):
         self.order = order
         self.cells.children = boxes
         n_more = len(visible) - len(shown)
-        self.more.description = f"Show {min(n_more, 6)} more panel(s) of {n_more}"
+        step = min(n_more, 6)
+        self.more.description = (f"Show {step} more panel{'s' if step != 1 else ''}"
+                                 + (f" ({n_more} not shown)" if n_more > step else ""))
         self.more.layout.display = None if n_more > 0 else "none"
         d = snap.drawn
         if d.complete:

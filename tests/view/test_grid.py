@@ -136,9 +136,10 @@ def test_pin_and_hide_from_the_page(wire, study):
 def test_more_panels_button(wire, study):
     grid = ResidualGrid(study, max_panels=3)
     assert len(grid.order) == 3 and len(grid.panels) == 3  # panels off screen are not built
+    assert grid.more.description == f"Show 6 more panels ({len(grid.titles) - 3} not shown)"
     grid.more.click()
     assert len(grid.order) == 3 + 6  # six more per click
-    assert grid.more.description == f"Show 5 more panel(s) of {len(grid.titles) - 9}"
+    assert grid.more.description == f"Show {len(grid.titles) - 9} more panels"
     grid.more.click()
     assert len(grid.order) == len(grid.titles)
     assert grid.more.layout.display == "none"
