@@ -700,23 +700,26 @@ class Study:
                 skip.add(self.declarations.time)  # the datetime itself; its decimal years are used
             cands = C.catalogue(frame, response=self.response, model_terms=list(state.terms),
                                 declarations=self.declarations, time=self.time_column,
-                                skip=tuple(skip), resid=model.ls.resid)
-            blocks = []
-            for c in cands:
+                                skip=tuple(skip), fit=model.ls)
+            blocks, failed = [], {}
+            for i, c in enumerate(cands):
                 try:
                     blocks.append(model.term_block(c.term)[0])
-                except (ValueError, patsy.PatsyError):
+                except (ValueError, patsy.PatsyError) as exc:
                     blocks.append(np.full((len(model.rows), 1), np.nan))
+                    failed[c.term] = f"could not be evaluated: {str(exc).splitlines()[0]}"
             scores = C.score_candidates(model.ls, blocks, method=self.multiplicity,
-                                        alpha=self.alpha)
+                                        alpha=self.alpha, searched=[c.searched for c in cands])
             table = C.rank_candidates(cands, scores, alpha=self.alpha)
+            if failed:
+                table["note"] = [failed.get(t, n) for t, n in zip(table["term"], table["note"])]
             # change in CV RMSE for the leading candidates (each costs about one fit)
             where = {c.term: i for i, c in enumerate(cands)}
             ordered = [blocks[where[t]] for t in table["term"]]
             table["delta_cv"] = C.delta_cv(model.X, model.y, self._folds[model.rows], ordered,
                                            top=self.delta_cv_top, weights=model.w,
                                            scheme=self.cv_scheme)
-            table.attrs["examined"] = len(cands)
+            table.attrs.setdefault("examined", len(cands))
             self._cand_cache[state] = table
             self._examined_terms.update(c.term for c in cands)
             return table
