@@ -155,7 +155,8 @@ def test_status_line_and_progress(wire, study):
     gate = threading.Event()
     w.run(lambda: gate.wait(20), "slow refit")
     _until(lambda: w.status.startswith("Working: slow refit"))
-    assert w.progress.layout.visibility == "hidden"  # not before about a second
+    if time.monotonic() - w._started < 0.8:  # a loaded machine may already be past the second
+        assert w.progress.layout.visibility == "hidden"  # not before about a second
     _until(lambda: w.progress.layout.visibility == "visible", timeout=5)
     assert w.status.endswith(" s")
     gate.set()
