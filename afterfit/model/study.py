@@ -141,12 +141,10 @@ class _Model:
         self.avail = avail
         self.rows = avail[ok]  # positions in the user's data
         self.dropped = avail[~ok]
-        X = np.concatenate(blocks, axis=1) if len(blocks) > 1 else blocks[0]
-        if not ok.all():
-            X = X[ok]
+        self._buffer, self.X = self._assemble(tcs, ok, study._last_model)
+        if not self.all_finite:
             y = y[ok]
             w = None if w is None else w[ok]
-        self.X = np.ascontiguousarray(X)
         self.y = np.ascontiguousarray(y)
         self.w = w
         n, p = self.X.shape
@@ -156,6 +154,39 @@ class _Model:
                 "dropped for missing values): use fewer terms or more data"
             )
         self.ls: LeastSquares = fit_ols(self.X, self.y, weights=w, names=tuple(names))
+        study._last_model = self
+
+    def _assemble(self, tcs, ok, parent):
+        """The design as a column-major view of a shared buffer.
+
+        A model that extends its parent by columns at the end (the usual "add a term" step, on the
+        same rows) writes only its new columns into the parent's spare buffer space; the parent's
+        columns are never touched, and a buffer is extended by one child only (``used`` check), so
+        every model keeps seeing exactly its own design.
+        """
+        p = sum(len(tc.names) for tc in tcs)
+        n = int(ok.sum())
+        start = 0
+        buf = None
+        if (parent is not None and parent.cache is self.cache and parent._buffer is not None
+                and np.array_equal(parent.finite, ok)):
+            k = len(parent.term_columns)
+            pb = parent._buffer
+            if (k <= len(tcs) and all(a is b for a, b in zip(parent.term_columns, tcs[:k]))
+                    and pb["used"] == parent.X.shape[1] and pb["data"].shape[1] >= p):
+                buf, start = pb, parent.X.shape[1]
+        if buf is None:
+            buf = {"data": np.empty((n, p + 4), order="F"), "used": 0}
+            start = 0
+        col = 0
+        for tc in tcs:
+            q = len(tc.names)
+            if col >= start:
+                vals = tc.values if self.all_finite else tc.values[ok]
+                buf["data"][:, col:col + q] = vals
+            col += q
+        buf["used"] = p
+        return buf, buf["data"][:, :p]
 
     @cached_property
     def labels(self) -> pd.Index:
@@ -380,6 +411,7 @@ class Study:
             raise ValueError(f"cv_scheme={scheme!r} needs time= to order the rows")
         self.cv_scheme = scheme
 
+        self._last_model = None
         self._caches: OrderedDict = OrderedDict()
         self._models: OrderedDict = OrderedDict()
         self._cand_cache: dict = {}

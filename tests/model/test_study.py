@@ -198,3 +198,21 @@ def test_undo_redo_random_sequences_restore_exact_fits(actions, seed):
         s.undo()
     pd.testing.assert_series_equal(s.fit.params, smf.ols("y ~ x", df).fit().params,
                                    check_names=False, rtol=1e-10)
+
+
+def test_shared_design_buffer_never_changes_an_earlier_model():
+    """Adding a term reuses the parent's column buffer; siblings must not overwrite each other."""
+    df = _data()
+    s = af.Study(df, "y ~ x", plausible=["z", "w"])
+    base = s._current
+    s.add("z")
+    child_a = s._current
+    Xa = child_a.X.copy()
+    s.undo()
+    s.add("w")  # a sibling of child_a on the same rows
+    child_b = s._current
+    np.testing.assert_array_equal(child_a.X, Xa)
+    assert child_a.X.shape[1] == child_b.X.shape[1] == 3
+    ref = smf.ols("y ~ x + z", df).fit()  # source: statsmodels
+    np.testing.assert_allclose(child_a.X, ref.model.exog, rtol=0, atol=0)
+    np.testing.assert_allclose(base.X, smf.ols("y ~ x", df).fit().model.exog, rtol=0, atol=0)
