@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
 import ipywidgets as W
@@ -355,8 +355,11 @@ def build_panel(snap: _Snapshot, key: str, title: str) -> PanelData:
     if key == "influence":
         h = infl["leverage"].to_numpy(dtype=float)
         r = infl["student_int"].to_numpy(dtype=float)
+        guides = _cook_guides(h, r, study.fit.rank)
+        if not guides:
+            score = replace(score, note=score.note + " · no row near Cook's D 0.5 (no contour)")
         return PanelData(key, title, "scatter", h, r, "leverage", "studentized residual", score,
-                         guides=_cook_guides(h, r, study.fit.rank))
+                         guides=guides)
     if key == "memory":
         acf = study.acf()
         lags = acf["lag"].to_numpy(dtype=float)

@@ -358,3 +358,11 @@ def test_a_panel_the_study_cannot_give_is_reported(wire, study, monkeypatch):
     assert "partial:tree_age" not in grid.order and "fitted" in grid.order
     assert "Not drawn: Partial residual: " in grid.note.value
     assert "no partial residuals for tree_age" in grid.note.value
+
+
+def test_influence_map_says_when_the_contours_are_out_of_range(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    view = grid.panels["influence"]
+    assert study.influence["cooks_d"].max() < 0.5
+    assert not view.guides.visible
+    assert "no row near Cook's D 0.5 (no contour)" in view.subtitle.value
