@@ -87,12 +87,11 @@ def test_drop_to_redrawn_grid_and_meter(page, lab, request, n):
         started = time.monotonic()
         chip.drag_to(wb.locator(".afterfit-strip").first)
         until(lambda: len(probe.json("w.study.terms")) > len(before), timeout=budget,
-               what=f"{term} to be added")
+              what=f"{term} to be added")
         until(lambda: not probe.json("w.busy"), timeout=budget, what="the Explorer to finish")
         # quiet page: two seconds without any DOM change under the workbench
-        until(lambda: page.evaluate(
-            "() => performance.now() - window.__afterfitLatency.last > 2000"),
-            timeout=budget, what="the page to stop redrawing")
+        quiet = "() => performance.now() - window.__afterfitLatency.last > 2000"
+        until(lambda: page.evaluate(quiet), timeout=budget, what="the page to stop redrawing")
         wall = time.monotonic() - started
         marks = page.evaluate("() => window.__afterfitLatency")
         terms = probe.json("w.study.terms")

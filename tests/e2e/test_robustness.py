@@ -107,7 +107,7 @@ def test_reload_rerenders_the_live_workbench(page, lab):
     wb = _workbench(page)
     until(lambda: wb.locator(".bqplot.figure").count() > 0, timeout=90, what="the grid again")
     until(lambda: wb.locator(".afterfit-tray .afterfit-chip").count() > 0, timeout=90,
-           what="the tray again")
+          what="the tray again")
     shot(page, "robust-03-after-reload")
     probe = lab.probe(name)
     try:

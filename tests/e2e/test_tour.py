@@ -145,7 +145,7 @@ def test_02_brush_lists_exactly_the_rows_in_range(tour):
     assert selected == expected
     n = len(expected)
     until(lambda: f"{n:,} row" in _inspector_count_text(tour), timeout=20,
-           what=f"the inspector to say {n} rows")
+          what=f"the inspector to say {n} rows")
     tour.state["brushed"] = expected
     fig.scroll_into_view_if_needed()
     shot(page, "tour-02-brush")
@@ -165,18 +165,20 @@ def test_03_exclude_brushed_rows_changes_the_fit(tour):
     n_before = int(_ROWS_USED.search(before).group(1).replace(",", ""))
     rmse_before = _RMSE.search(before).group(1)
     wb = tour.wb
+    n_excluded = tour.k("len(w.study.excluded)")
     wb.locator(".afterfit-exclude").first.click()
     reason = "e2e: brushed band excluded to check the refit"
     wb.locator(".afterfit-exclude-reason input").first.fill(reason)
     wb.locator(".afterfit-exclude-confirm").first.click()
-    until(lambda: tour.k("len(w.study.excluded)") >= 3 + len(rows), what="the exclusion")
+    until(lambda: tour.k("len(w.study.excluded)") == n_excluded + len(rows),
+          what="the exclusion")
     tour.settle()
     excluded = tour.k("{int(k): v for k, v in w.study.excluded.items()}")
     assert all(excluded[str(r)] == reason for r in rows)
     n_used, rmse = tour.k("[len(w.study.rows), w.study.fit.rmse]")
     assert n_used == n_before - len(rows)
     until(lambda: f"{n_used:,} rows used" in tour.header_text(), timeout=20,
-           what="the header's row count")
+          what="the header's row count")
     after = tour.header_text()
     assert _RMSE.search(after).group(1) == f"{rmse:.4g}" != rmse_before
     wb.locator(".afterfit-header").first.scroll_into_view_if_needed()
@@ -210,9 +212,9 @@ def test_04_drag_stated_chip_refits_grid_and_meter(tour):
     tour.settle()
     until(lambda: _strip_terms(tour) == terms_before + parts, timeout=20, what="the model strip")
     until(lambda: wb.locator(".afterfit-meter").first.inner_text() != meter_before, timeout=20,
-           what="the fit meter to change")
+          what="the fit meter to change")
     until(lambda: wb.locator(".afterfit-grid").first.inner_text() != grid_before, timeout=20,
-           what="the residual grid to change")
+          what="the residual grid to change")
     step = tour.k("[w.study.steps[-1].kind, w.study.steps[-1].tag]")
     assert step == ["add", "stated"]
     wb.locator(".afterfit-tray").first.scroll_into_view_if_needed()
@@ -236,7 +238,7 @@ def test_05_speculative_chip_asks_for_a_reason(tour):
     last = tour.k("[w.study.steps[-1].tag, w.study.steps[-1].reason]")
     assert last == ["speculative", reason]
     until(lambda: _strip_terms(tour) == tour.k("w.study.terms"), timeout=20,
-           what="the model strip")
+          what="the model strip")
     shot(tour.page, "tour-06-speculative-added")
     tour.state["terms_with_speculative"] = tour.k("w.study.terms")
 
@@ -313,7 +315,7 @@ def test_07_export_inserts_code_that_reproduces_the_fit(tour):
     page.keyboard.press("Shift+Enter")
     wait_idle(page)
     until(lambda: "dtype" in new.locator(".jp-OutputArea").inner_text(), timeout=60,
-           what="the exported cell's output")
+          what="the exported cell's output")
     printed = _parse_series(new.locator(".jp-OutputArea").inner_text())
     study = tour.k("{str(k): float(v) for k, v in w.study.fit.params.items()}")
     assert set(printed) == set(study)
