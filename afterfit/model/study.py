@@ -119,6 +119,7 @@ class _Model:
         self.study = study
         self.state = state
         self.cache = cache
+        self.memo: dict = {}  # per-state results for the view (panel variables, scores, smoothers)
         rhs = [patsy.Term([])] if state.intercept else []
         rhs += [_parse_term(t) for t in state.terms]
         if not rhs:
@@ -782,8 +783,15 @@ class Study:
 
     # -- panels for the view --------------------------------------------------------------------
     def panel_variables(self) -> dict:
-        """Every plottable column over the fitted rows (response and weights left out)."""
+        """Every plottable column over the fitted rows (response and weights left out).
+
+        Datetimes are given as decimal years.  A data column called "fitted" is keyed
+        "fitted (column)" so it never hides the fitted values.  Cached per model state.
+        """
         model = self._current
+        hit = model.memo.get("panel_variables")
+        if hit is not None:
+            return dict(hit)
         frame = self.data.iloc[model.rows]
         out = {}
         for c in self.data.columns:
@@ -792,27 +800,47 @@ class Study:
             s = frame[c]
             if pd.api.types.is_datetime64_any_dtype(s.dtype):
                 s = pd.Series(decimal_years(s), index=s.index, name=c)
-            out[c] = s
-        return out
+            out["fitted (column)" if c == "fitted" else c] = s
+        model.memo["panel_variables"] = out
+        return dict(out)
 
     def pattern_scores(self) -> pd.DataFrame:
-        """How much structure the residuals still show against each variable (worst first)."""
+        """How much structure the residuals still show against each variable (worst first).
+
+        Includes "fitted" (the fitted values).  Cached per model state.
+        """
         from afterfit.model.candidates import pattern_scores
 
         model = self._current
-        variables = {"fitted": pd.Series(model.ls.fitted, index=model.labels)}
-        variables.update(self.panel_variables())
-        table = pattern_scores(model.ls.resid, {k: np.asarray(v) for k, v in variables.items()},
-                               weights=model.w)
-        return table.sort_values("score", ascending=False)
+        hit = model.memo.get("pattern_scores")
+        if hit is not None:
+            return hit.copy()
+        variables = {"fitted": model.ls.fitted}
+        variables.update({k: np.asarray(v) for k, v in self.panel_variables().items()})
+        table = pattern_scores(model.ls.resid, variables, weights=model.w)
+        table = table.sort_values("score", ascending=False)
+        model.memo["pattern_scores"] = table
+        return table.copy()
 
     def binned_means(self, name: str, *, bins: int = 10) -> pd.DataFrame:
         """The smoother of a residual panel: residual means in quantile bins with a band."""
         from afterfit.model.candidates import binned_means
 
         model = self._current
-        x = model.ls.fitted if name == "fitted" else np.asarray(self.panel_variables()[name])
-        return binned_means(x, model.ls.resid, bins=bins)
+        key = ("binned", name, bins)
+        hit = model.memo.get(key)
+        if hit is not None:
+            return hit.copy()
+        if name == "fitted":
+            x = model.ls.fitted
+        else:
+            pv = self.panel_variables()
+            if name not in pv:
+                raise ValueError(f"{name!r} is not a plottable variable; choose from {list(pv)}")
+            x = np.asarray(pv[name])
+        out = binned_means(x, model.ls.resid, bins=bins)
+        model.memo[key] = out
+        return out.copy()
 
     def partial_residuals(self, term: str) -> pd.DataFrame:
         """Partial residuals of a single-column numeric term: x, component + residual."""
