@@ -33,6 +33,7 @@ __all__ = ["Explorer"]
 _PROGRESS_AFTER = 1.0  # seconds before the status line shows a moving progress bar
 _TICK = 0.25
 _REFRESH_WAIT = 30.0  # most seconds the worker waits for the page to catch up between actions
+_PRIMARY = ("header", "model strip", "fit meter", "residual grid", "row inspector", "timeline", "export")
 _SMALL_N_PER_PARAMETER = 10  # rows per parameter below which a fit is called small (common practice)
 
 
@@ -245,16 +246,47 @@ class Explorer(W.VBox):
             except Exception as exc:  # shown in the widget; the kernel keeps running
                 error = exc
             with self._cv:
-                self._running = None
                 refresh_due = self._refresh_queued
-                self._cv.notify_all()
+                self._refresh_queued = False
             if error is not None:
                 self._post(lambda j=job, e=error: self._show_error(j, e))
+            if refresh_due and not self._closed:
+                # the grid, meter and timeline first; candidate terms (the slow part on large
+                # tables) after them, so a refit shows as soon as its own numbers exist.  The
+                # Study's results are computed here, off the page's thread, and cached per state.
+                self._stage(job, "redraw", self._warm_primary, _PRIMARY)
+                self._stage(job, "update candidate terms", self._warm_tray, ("term tray",))
+            with self._cv:
+                self._running = None
+                self._cv.notify_all()
             self._post(self._show_status)
-            if refresh_due:
-                # let the page catch up before the next action, so the main thread never waits
-                # on the Study while this thread holds it
-                self._refreshed.wait(_REFRESH_WAIT)
+
+    def _stage(self, job: _Job, what: str, warm: Callable[[], Any], parts: tuple) -> None:
+        with self._cv:
+            self._running = _Job(job.fn, f"{job.label}: {what}", job.key)
+        self._post(self._show_status)
+        try:
+            warm()
+        except Exception:  # the refresh below shows what went wrong, part by part
+            pass
+        self._refreshed.clear()
+
+        def show() -> None:
+            try:
+                self.refresh(parts)
+            finally:
+                self._refreshed.set()
+
+        self._post(show)
+        self._refreshed.wait(_REFRESH_WAIT)
+
+    def _warm_primary(self) -> None:
+        s = self._study
+        s.fit, s.influence, s.pattern_scores(), s.meter()
+        s.checks()
+
+    def _warm_tray(self) -> None:
+        self._study.candidates()
 
     def _tick(self, job: _Job) -> None:
         while True:
@@ -309,31 +341,30 @@ class Explorer(W.VBox):
     # -- following the Study ------------------------------------------------------------------
     def _changed(self) -> None:
         with self._cv:
-            if self._refresh_queued:
-                return
             self._refresh_queued = True
-        self._post(self._refresh_queued_now)
+            from_worker = threading.current_thread() is self._worker
+        if not from_worker and not self._closed:
+            # a change made in another cell: the worker computes and redraws, as for the page
+            self.run(lambda: None, "update the workbench", key="__refresh__")
 
-    def _refresh_queued_now(self) -> None:
-        with self._cv:
-            self._refresh_queued = False
-        try:
-            self.refresh()
-        finally:
-            self._refreshed.set()
-
-    def refresh(self) -> None:
-        """Redraw every part from the Study's current state, in one batch."""
+    def refresh(self, parts: tuple | None = None) -> None:
+        """Redraw the named parts (default: every part) from the Study's current state, in one batch."""
         self.refresh_count += 1
         problems = []
+        every = (("header", None), ("model strip", None), ("term tray", self.tray),
+                 ("fit meter", self.meter),
+                 ("residual grid", self.grid), ("row inspector", self.inspector),
+                 ("timeline", self.timeline), ("export", self.export))
         with self.hold_sync():
-            for name, part in (("header", None), ("term tray", self.tray),
-                               ("fit meter", self.meter), ("residual grid", self.grid),
-                               ("row inspector", self.inspector), ("timeline", self.timeline),
-                               ("export", self.export)):
+            for name, part in every:
+                if parts is not None and name not in parts:
+                    continue
                 try:
-                    if part is None:
+                    if name == "header":
                         self._refresh_header()
+                    elif name == "model strip":
+                        if parts is not None:  # a full refresh updates the whole tray anyway
+                            self.tray.refresh_terms()
                     elif hasattr(part, "refresh"):
                         part.refresh()
                 except Exception as exc:  # one broken part must not blank the others

@@ -71,10 +71,15 @@ class Tray(StudyWidget):
     _requests = {"add": "_request_add", "remove": "_request_remove"}
 
     def _pull(self) -> None:
+        self.refresh_terms()
+        self.candidates = candidate_records(self._study.candidates())
+
+    def refresh_terms(self) -> None:
+        """Update only the model strip (cheap); the candidates follow with ``refresh()``."""
         study = self._study
-        self.terms = [str(t) for t in study.terms]
-        self.formula = str(study.formula)
-        self.candidates = candidate_records(study.candidates())
+        with self.hold_sync():
+            self.terms = [str(t) for t in study.terms]
+            self.formula = str(study.formula)
 
     def _request_add(self, content: dict) -> None:
         term = request_text(content, "term")
