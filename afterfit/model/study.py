@@ -345,7 +345,7 @@ class Study:
         self.multiplicity = multiplicity
         self.seed = int(seed)
         self.k_folds = int(cv)
-        self.delta_cv_top = 10
+        self.delta_cv_top = 5  # candidates (best first) whose change in CV RMSE is computed
         self.holdout_fraction = float(holdout)
         self._lock = threading.RLock()
         self._listeners: list[Callable] = []

@@ -315,3 +315,14 @@ def test_state_at_a_million_rows_stays_small(wire):
         if view.highlight is not None:
             assert len(view.drawn) <= w.grid.budget
             assert view.density.visible
+
+
+def test_explore_accepts_an_existing_study(wire, study):
+    import afterfit as af
+
+    w = af.explore(study)
+    assert w.study is study
+    with pytest.raises(TypeError, match="formula"):
+        af.explore(study, "y ~ x")
+    with pytest.raises(TypeError, match="formula"):
+        af.explore(study.data)
