@@ -212,6 +212,73 @@ class DesignCache:
         return self._evaluate(self.columns(t, subs).design_info, frame)[:, 0]
 
 
+def extended_values(cache: "DesignCache", tc: TermColumns) -> np.ndarray:
+    """A term's columns in numpy ``longdouble``, exact for powers and products of columns.
+
+    Factors written as a column (``x``, ``Q("x")``), a power ``I(x ** k)`` / ``np.power(x, k)``
+    or a product of those are evaluated in extended precision from the data; anything else is
+    the double-precision value widened (no gain, no loss).  Used by the kernel's extended path
+    for ill-conditioned polynomial designs.
+    """
+    LD = np.longdouble
+    if not tc.term.factors:
+        return np.ones(tc.values.shape, dtype=LD)
+    if len(tc.names) != 1:
+        return tc.values.astype(LD)
+    out = None
+    for f in tc.term.factors:
+        col = _ld_factor(cache.frame, f.name())
+        if col is None:
+            return tc.values.astype(LD)
+        out = col if out is None else out * col
+    return out.reshape(-1, 1)
+
+
+def _ld_factor(frame: pd.DataFrame, code: str):
+    import ast
+
+    try:
+        node = ast.parse(code, mode="eval").body
+    except SyntaxError:
+        return None
+
+    def column(n):
+        if isinstance(n, ast.Name) and n.id in frame.columns:
+            name = n.id
+        elif (isinstance(n, ast.Call) and isinstance(n.func, ast.Name) and n.func.id == "Q"
+              and len(n.args) == 1 and isinstance(n.args[0], ast.Constant)
+              and isinstance(n.args[0].value, str) and n.args[0].value in frame.columns):
+            name = n.args[0].value
+        else:
+            return None
+        s = frame[name]
+        if not pd.api.types.is_numeric_dtype(s.dtype) or pd.api.types.is_bool_dtype(s.dtype):
+            return None
+        return s.to_numpy(dtype=np.longdouble)
+
+    def power(base, exp):
+        x = column(base)
+        if x is None or not (isinstance(exp, ast.Constant) and isinstance(exp.value, int)
+                             and 0 < exp.value <= 64):
+            return None
+        return x ** exp.value
+
+    direct = column(node)
+    if direct is not None:
+        return direct
+    if isinstance(node, ast.Call) and isinstance(node.func, ast.Name) and node.func.id == "I" \
+            and len(node.args) == 1:
+        inner = node.args[0]
+        if isinstance(inner, ast.BinOp) and isinstance(inner.op, ast.Pow):
+            return power(inner.left, inner.right)
+        return None
+    if (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+            and isinstance(node.func.value, ast.Name) and node.func.value.id == "np"
+            and node.func.attr == "power" and len(node.args) == 2):
+        return power(node.args[0], node.args[1])
+    return None
+
+
 def _explain(exc: Exception) -> str:
     msg = str(exc).strip()
     return (

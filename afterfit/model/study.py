@@ -155,6 +155,14 @@ class _Model:
                 "dropped for missing values): use fewer terms or more data"
             )
         self.ls: LeastSquares = fit_ols(self.X, self.y, weights=w, names=tuple(names))
+        if self.ls.method == "extended":
+            # ill-conditioned: give the kernel the polynomial columns in extended precision too
+            from afterfit.model.design import extended_values
+
+            ext = np.concatenate([extended_values(cache, tc) for tc in tcs], axis=1)
+            if not self.all_finite:
+                ext = ext[ok]
+            self.ls = fit_ols(self.X, self.y, weights=w, names=tuple(names), X_ext=ext)
         study._last_model = self
 
     def _assemble(self, tcs, ok, parent):
