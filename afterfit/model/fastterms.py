@@ -354,9 +354,9 @@ class _Evaluator:
             raise _Unsupported
         try:
             knots = _get_all_sorted_knots(x, n_inner_knots=df - 2 + n_constraints)
-        except ValueError:
+            F = _get_natural_f(knots)
+        except (ValueError, np.linalg.LinAlgError):  # too few distinct values: patsy says so
             raise _Unsupported from None
-        F = _get_natural_f(knots)
         k = knots.size
         ajm, ajp, cjm, cjp, j = _base_functions(x, knots)
         if centre:
