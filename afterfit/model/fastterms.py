@@ -20,6 +20,7 @@ from __future__ import annotations
 import ast
 import functools
 import math
+from typing import Sequence
 
 import numpy as np
 import pandas as pd
@@ -48,7 +49,8 @@ class _Unsupported(Exception):
 
 
 def evaluate_block(term: str, frame: pd.DataFrame, rows: np.ndarray | None, *,
-                   intercept: bool) -> np.ndarray | None:
+                   intercept: bool, model_terms: Sequence[str] | None = None
+                   ) -> np.ndarray | None:
     """Columns spanning what ``term`` adds to a model, or None when patsy should decide.
 
     Parameters
@@ -64,6 +66,12 @@ def evaluate_block(term: str, frame: pd.DataFrame, rows: np.ndarray | None, *,
     intercept : bool
         Whether the current model has an intercept (decides the coding of ``C(g)`` and of a
         comparison such as ``I(t >= c)``; without an intercept those return None).
+    model_terms : sequence of str, optional
+        The current model's terms in patsy's spelling (``Study.terms``).  Optional, but it
+        saves the scorer work: terms already in the model are left out (as patsy's
+        ``term_block`` does), and ``C(g):x`` with ``x`` in the model gets patsy's own columns
+        (every level but the first) instead of a block that repeats ``x``, which the scorer
+        can only resolve with another pass over the rows.
 
     Returns
     -------
@@ -109,12 +117,23 @@ def evaluate_block(term: str, frame: pd.DataFrame, rows: np.ndarray | None, *,
     terms, reserved = plan
     if any(name in frame.columns for name in reserved):
         return None
+    have = frozenset()
+    if model_terms is not None:
+        have = _term_keys(tuple(model_terms))
+        if have is None:
+            return None
+    terms = [(key, factors) for key, factors in terms if key not in have]
+    # the numeric parts whose columns the model (or this block) already holds
+    known = have | {key for key, _ in terms}
     ev = _Evaluator(frame, rows)
     try:
         with np.errstate(all="ignore"):  # log(0), x/0: non-finite rows, reported by the scorer
-            blocks = [_term_columns(factors, ev, intercept=intercept) for factors in terms]
+            blocks = [_term_columns(factors, ev, intercept=intercept, known=known)
+                      for _, factors in terms]
     except (_Unsupported, RecursionError, MemoryError):
         return None
+    if not blocks:
+        return np.empty((ev.n, 0))
     out = np.concatenate(blocks, axis=1) if len(blocks) > 1 else blocks[0]
     return np.ascontiguousarray(out, dtype=np.float64)
 
@@ -123,16 +142,38 @@ def evaluate_block(term: str, frame: pd.DataFrame, rows: np.ndarray | None, *,
 # parsing: term text -> a plan of whitelisted nodes (cached; independent of the data)
 
 
-@functools.lru_cache(maxsize=4096)
-def _plan(term: str):
-    """``(terms, reserved names used)`` or None; each term is a tuple of factor plans."""
+def _patsy_terms(term: str):
+    """patsy's terms (with factors) of formula text, or None when patsy cannot read it."""
     if len(term) > _MAX_TERM_CHARS or not term.strip():
         return None
     try:
         desc = patsy.ModelDesc.from_formula("__y__ ~ 0 + " + term)
     except (patsy.PatsyError, SyntaxError, ValueError, RecursionError):
         return None
-    terms = [t for t in desc.rhs_termlist if t.factors]
+    return [t for t in desc.rhs_termlist if t.factors]
+
+
+def _key(factor_codes) -> frozenset:
+    # patsy compares terms by their set of factors, and factors by their normalised code
+    return frozenset(factor_codes)
+
+
+@functools.lru_cache(maxsize=256)
+def _term_keys(model_terms: tuple):
+    """Keys of the model's terms, or None when one of them is not a string patsy reads."""
+    keys = set()
+    for text in model_terms:
+        terms = _patsy_terms(text) if isinstance(text, str) else None
+        if terms is None:
+            return None
+        keys.update(_key(getattr(f, "code", None) for f in t.factors) for t in terms)
+    return frozenset(keys)
+
+
+@functools.lru_cache(maxsize=4096)
+def _plan(term: str):
+    """``(terms, reserved names used)`` or None; each term is ``(key, factor plans)``."""
+    terms = _patsy_terms(term)
     if not terms:
         return None
     reserved: set = set()
@@ -144,8 +185,8 @@ def _plan(term: str):
                 code = getattr(f, "code", None)
                 if not isinstance(code, str):
                     return None
-                factors.append(_parse_factor(code, reserved))
-            out.append(tuple(factors))
+                factors.append((code, _parse_factor(code, reserved)))
+            out.append((_key(code for code, _ in factors), tuple(factors)))
     except (_Unsupported, SyntaxError, ValueError, RecursionError, MemoryError):
         return None
     return tuple(out), frozenset(reserved)
@@ -373,10 +414,15 @@ class _Evaluator:
         FZ = F @ Z
         if self.rows is not None:
             ajm, ajp, cjm, cjp, j = (v[self.rows] for v in (ajm, ajp, cjm, cjp, j))
-        out = ajm[:, None] * Z[j]
-        out += ajp[:, None] * Z[j + 1]
-        out += cjm[:, None] * FZ[j]
-        out += cjp[:, None] * FZ[j + 1]
+        # column by column with 1-D gathers: about 3x quicker than gathering (n, q) blocks
+        out = np.empty((j.size, Z.shape[1]))
+        for c in range(Z.shape[1]):
+            zc, fc = Z[:, c], FZ[:, c]
+            col = ajm * zc[:-1].take(j)
+            col += ajp * zc[1:].take(j)
+            col += cjm * fc[:-1].take(j)
+            col += cjp * fc[1:].take(j)
+            out[:, c] = col
         return out
 
     def categorical(self, name):
@@ -434,10 +480,12 @@ def _base_functions(x, knots):
     return ajm, ajp, cjm, cjp, j
 
 
-def _term_columns(factors, ev: _Evaluator, *, intercept: bool) -> np.ndarray:
+def _term_columns(factors, ev: _Evaluator, *, intercept: bool, known) -> np.ndarray:
     """One patsy term's columns (up to span) over the used rows."""
-    numeric, cats = [], []
-    for f in factors:
+    numeric, cats, numeric_codes = [], [], []
+    for code, f in factors:
+        if f[0] in ("num", "cr"):
+            numeric_codes.append(code)
         if f[0] == "num":
             numeric.append(ev.vector(f[1]))
         elif f[0] == "cr":
@@ -459,10 +507,14 @@ def _term_columns(factors, ev: _Evaluator, *, intercept: bool) -> np.ndarray:
             raise _Unsupported
         cols = _indicators(codes, k)[:, 1:]
         return cols
-    # levels times numeric factors: every level's indicator.  patsy drops one level only when
-    # the numeric part alone is already in the model, and then that level's column lies in the
-    # span of the others and the model's columns: the span is the same either way.
+    # levels times numeric factors.  When the numeric part alone is a term of the model (or
+    # of this block), its columns are there: every level but the first, as patsy codes it.
+    # Otherwise every level: patsy keeps every level too unless the numeric part's columns
+    # reached the model another way (C(h):x, say), and then the first level's columns lie in
+    # the span of the others and the model's, so the span is the same either way.
     ind = _indicators(codes, k)
+    if _key(numeric_codes) in known:
+        ind = ind[:, 1:]
     out = (ind[:, :, None] * prod[:, None, :]).reshape(ev.n, -1)
     return out
 

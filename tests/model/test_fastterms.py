@@ -44,9 +44,11 @@ def _catalogue(study):
                        skip=tuple(skip), fit=model.ls)
 
 
-def _fast(study, term):
+def _fast(study, term, *, terms=True):
+    """evaluate_block as Study.candidates() calls it (``terms=False``: without model_terms)."""
     model = study._current
-    return evaluate_block(term, model.cache.frame, model.finite, intercept=study.state.intercept)
+    return evaluate_block(term, model.cache.frame, model.finite, intercept=study.state.intercept,
+                          model_terms=study.terms if terms else None)
 
 
 def _score(study, block):
@@ -68,18 +70,21 @@ def _statsmodels_f(study, term, restricted):
 
 
 def _check_term(study, term, restricted):
-    """fast F == patsy-block F == statsmodels F for a term whose columns are all finite."""
-    fast = _fast(study, term)
-    got = _score(study, fast)
+    """fast F == patsy-block F == statsmodels F for a term whose columns are all finite.
+
+    Both with and without ``model_terms``.
+    """
     want = _score(study, study._current.term_block(term)[0])  # source: patsy's columns
     f, df_diff = _statsmodels_f(study, term, restricted)  # source: statsmodels
-    if df_diff == 0:  # the term repeats the model's columns: no test from any source
-        assert np.isnan(got.statistic) and np.isnan(want.statistic)
-        assert "adds nothing" in got.note
-        return
-    assert got.df_num == want.df_num == df_diff
-    assert got.statistic == pytest.approx(want.statistic, rel=RTOL)
-    assert got.statistic == pytest.approx(f, rel=RTOL)
+    for terms in (True, False):
+        got = _score(study, _fast(study, term, terms=terms))
+        if df_diff == 0:  # the term repeats the model's columns: no test from any source
+            assert np.isnan(got.statistic) and np.isnan(want.statistic)
+            assert "adds nothing" in got.note or "no columns" in got.note
+            continue
+        assert got.df_num == want.df_num == df_diff
+        assert got.statistic == pytest.approx(want.statistic, rel=RTOL)
+        assert got.statistic == pytest.approx(f, rel=RTOL)
 
 
 def _check_study(study, *, refits_per_kind=None):
@@ -97,16 +102,21 @@ def _check_study(study, *, refits_per_kind=None):
         fast = _fast(study, cand.term)
         assert fast is not None, cand.term  # every catalogue shape is handled
         assert fast.dtype == np.float64 and fast.shape[0] == len(model.rows)
+        bare = _fast(study, cand.term, terms=False)  # without model_terms: same span
         block = model.term_block(cand.term)[0]
         got, want = _score(study, fast), _score(study, block)  # source: patsy's columns
+        got_bare = _score(study, bare)
         finite = np.isfinite(block).all()
-        assert np.isfinite(fast).all() == finite, cand.term
+        assert np.isfinite(fast).all() == np.isfinite(bare).all() == finite, cand.term
         if not finite:  # missing values: no evidence, never a number
             assert np.isnan(got.statistic) and np.isnan(want.statistic)
+            assert np.isnan(got_bare.statistic)
             assert "missing or infinite" in got.note
             continue
-        assert got.df_num == want.df_num, cand.term
+        assert fast.shape == block.shape, cand.term  # with model_terms: patsy's column count
+        assert got.df_num == want.df_num == got_bare.df_num, cand.term
         assert got.statistic == pytest.approx(want.statistic, rel=RTOL), cand.term
+        assert got_bare.statistic == pytest.approx(want.statistic, rel=RTOL), cand.term
         compared += 1
         kinds[cand.kind] = kinds.get(cand.kind, 0) + 1
         if refits_per_kind is not None and kinds[cand.kind] > refits_per_kind:
@@ -254,6 +264,20 @@ def test_group_terms_match_patsy_and_statsmodels(formula, term):
     study = af.Study(df, formula)
     restricted = smf.ols(study.formula, data=study._current.cache.frame).fit()
     _check_term(study, term, restricted)
+
+
+def test_model_terms_leave_out_what_the_model_has():
+    df = _data()
+    study = af.Study(df, "y ~ z + x + C(g)")
+    model = study._current
+    # source: patsy's columns through the design cache (terms already present are left out)
+    for term in ["C(h):z", "x + I(x ** 2)", "C(h):z + C(h):x", "z:x + C(g):x"]:
+        np.testing.assert_allclose(_fast(study, term), model.term_block(term)[0], rtol=0,
+                                   atol=1e-15)
+    assert _fast(study, "x + z").shape == (len(model.rows), 0)
+    assert _fast(study, "C(h):z", terms=False).shape[1] == 2  # every level when not told
+    frame = model.cache.frame
+    assert evaluate_block("x", frame, None, intercept=True, model_terms=["x +"]) is None
 
 
 def test_shapes_whose_coding_depends_on_other_terms_without_intercept_are_left_to_patsy():
