@@ -38,6 +38,8 @@ _RESERVED = frozenset({"np", "I", "Q", "C", "cr", "center", "standardize", "scal
 _UNARY = {"log": np.log, "exp": np.exp, "sqrt": np.sqrt, "sin": np.sin, "cos": np.cos,
           "abs": np.abs}
 _BINARY = {"maximum": np.maximum, "minimum": np.minimum}
+# Rows per chunk of the spline basis: its temporaries stay in the cache.
+_SPLINE_CHUNK = 1 << 15
 _BINOPS = {ast.Add: np.add, ast.Sub: np.subtract, ast.Mult: np.multiply,
            ast.Div: np.true_divide, ast.Pow: np.power}
 _CMPOPS = {ast.GtE: np.greater_equal, ast.Gt: np.greater, ast.LtE: np.less_equal,
@@ -399,12 +401,20 @@ class _Evaluator:
         except (ValueError, np.linalg.LinAlgError):  # too few distinct values: patsy says so
             raise _Unsupported from None
         k = knots.size
-        ajm, ajp, cjm, cjp, j = _base_functions(x, knots)
+        # row chunks small enough for the cache: the basis is never formed whole
+        step = _SPLINE_CHUNK
         if centre:
-            # column sums of the free basis over every frame row, without forming it:
+            # column sums of the free basis over every frame row:
             # B[r] = ajm e_j + ajp e_{j+1} + cjm F[j] + cjp F[j+1]
-            sums = (np.bincount(j, ajm, k) + np.bincount(j + 1, ajp, k)
-                    + np.bincount(j, cjm, k) @ F + np.bincount(j + 1, cjp, k) @ F)
+            at_j, at_j1 = np.zeros(k), np.zeros(k)
+            c_j, c_j1 = np.zeros(k), np.zeros(k)
+            for lo in range(0, x.size, step):
+                ajm, ajp, cjm, cjp, j = _base_functions(x[lo:lo + step], knots)
+                at_j += np.bincount(j, ajm, k)
+                at_j1 += np.bincount(j + 1, ajp, k)
+                c_j += np.bincount(j, cjm, k)
+                c_j1 += np.bincount(j + 1, cjp, k)
+            sums = at_j + at_j1 + (c_j + c_j1) @ F
             constraint = (sums / x.size).reshape(k, 1)
             # the same null space basis as patsy's _absorb_constraints
             q, _ = sla.qr(constraint)
@@ -412,17 +422,18 @@ class _Evaluator:
         else:
             Z = np.eye(k)
         FZ = F @ Z
-        if self.rows is not None:
-            ajm, ajp, cjm, cjp, j = (v[self.rows] for v in (ajm, ajp, cjm, cjp, j))
-        # column by column with 1-D gathers: about 3x quicker than gathering (n, q) blocks
-        out = np.empty((j.size, Z.shape[1]))
-        for c in range(Z.shape[1]):
-            zc, fc = Z[:, c], FZ[:, c]
-            col = ajm * zc[:-1].take(j)
-            col += ajp * zc[1:].take(j)
-            col += cjm * fc[:-1].take(j)
-            col += cjp * fc[1:].take(j)
-            out[:, c] = col
+        xr = self.take(x)
+        out = np.empty((xr.size, Z.shape[1]))
+        for lo in range(0, xr.size, step):
+            ajm, ajp, cjm, cjp, j = _base_functions(xr[lo:lo + step], knots)
+            part = out[lo:lo + step]
+            for c in range(Z.shape[1]):  # 1-D gathers from the k-row tables
+                zc, fc = Z[:, c], FZ[:, c]
+                col = ajm * zc[:-1].take(j)
+                col += ajp * zc[1:].take(j)
+                col += cjm * fc[:-1].take(j)
+                col += cjp * fc[1:].take(j)
+                part[:, c] = col
         return out
 
     def categorical(self, name):
@@ -505,27 +516,37 @@ def _term_columns(factors, ev: _Evaluator, *, intercept: bool, known) -> np.ndar
         # coding); without it patsy's coding depends on the other terms, so patsy decides
         if not intercept or k < 1:
             raise _Unsupported
-        cols = _indicators(codes, k)[:, 1:]
-        return cols
+        return _level_columns(codes, k, None, first=1)
     # levels times numeric factors.  When the numeric part alone is a term of the model (or
     # of this block), its columns are there: every level but the first, as patsy codes it.
     # Otherwise every level: patsy keeps every level too unless the numeric part's columns
     # reached the model another way (C(h):x, say), and then the first level's columns lie in
     # the span of the others and the model's, so the span is the same either way.
-    ind = _indicators(codes, k)
-    if _key(numeric_codes) in known:
-        ind = ind[:, 1:]
-    out = (ind[:, :, None] * prod[:, None, :]).reshape(ev.n, -1)
-    return out
+    first = 1 if _key(numeric_codes) in known else 0
+    return _level_columns(codes, k, prod, first=first)
 
 
-def _indicators(codes, k) -> np.ndarray:
-    out = np.zeros((codes.size, k))
-    ok = codes >= 0
-    idx = np.flatnonzero(ok)
-    out[idx, codes[ok]] = 1.0
-    if not ok.all():
-        out[~ok] = np.nan
+def _level_columns(codes, k, prod, *, first) -> np.ndarray:
+    """``prod`` times each level's indicator, levels ``first..k-1`` (level-major columns).
+
+    ``prod`` None stands for a column of ones.  A row whose level or numeric part is missing
+    or not finite is NaN throughout (patsy drops such a row; the scorer then gives no number).
+    """
+    n = codes.size
+    m = 1 if prod is None else prod.shape[1]
+    width = (k - first) * m
+    out = np.zeros((n, width))
+    r = np.flatnonzero(codes >= first)
+    if width and r.size:
+        at = r * width + (codes[r] - first) * m  # flat positions of each row's first column
+        flat = out.reshape(-1)
+        for i in range(m):
+            flat[at + i] = 1.0 if prod is None else prod[r, i]
+    bad = codes < 0
+    if prod is not None:
+        bad |= ~np.isfinite(prod).all(axis=1)
+    if bad.any():
+        out[bad] = np.nan
     return out
 
 

@@ -310,6 +310,12 @@ def test_missing_values_give_nan_rows_and_no_evidence():
         assert np.isnan(got.statistic) and "missing or infinite" in got.note
         # source: patsy's block has the same missing rows and gives no evidence either
         assert np.isnan(_score(study, study._current.term_block(term)[0]).statistic)
+    # the reference level's rows too, when that level's columns are left out
+    model = study._current
+    fast = evaluate_block("C(g):u", model.cache.frame, model.finite, intercept=True,
+                          model_terms=["u"])
+    assert fast.shape[1] == 2
+    np.testing.assert_array_equal(np.isnan(fast).all(axis=1), miss[used])
     # a comparison with a missing operand is missing (patsy would read it as False)
     fast = _fast(study, "I(t >= 150)")
     sel = np.isin(used, [7, 9])
