@@ -150,7 +150,7 @@ def _patsy_terms(term: str):
         return None
     try:
         desc = patsy.ModelDesc.from_formula("__y__ ~ 0 + " + term)
-    except (patsy.PatsyError, SyntaxError, ValueError, RecursionError):
+    except Exception:  # noqa: BLE001 -- any text patsy cannot read is patsy's to report
         return None
     return [t for t in desc.rhs_termlist if t.factors]
 
@@ -189,8 +189,8 @@ def _plan(term: str):
                     return None
                 factors.append((code, _parse_factor(code, reserved)))
             out.append((_key(code for code, _ in factors), tuple(factors)))
-    except (_Unsupported, SyntaxError, ValueError, RecursionError, MemoryError):
-        return None
+    except (_Unsupported, SyntaxError, ValueError, OverflowError, RecursionError, MemoryError):
+        return None  # OverflowError: an integer literal beyond float range
     return tuple(out), frozenset(reserved)
 
 
@@ -384,6 +384,8 @@ class _Evaluator:
         v = self.value(node, False)
         if np.ndim(v) != 1 or v.shape[0] != self.n:
             raise _Unsupported  # a constant factor: patsy's business
+        if any(v is c for c in self._cols.values()):
+            v = v.copy()  # a bare column: never hand out a view of the frame's data
         return np.asarray(v, dtype=np.float64)[:, None]
 
     def spline(self, node):

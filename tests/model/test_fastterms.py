@@ -223,6 +223,20 @@ def test_stateful_terms_memorised_on_all_frame_rows(formula, term):
     _check_term(study, term, restricted)
 
 
+@pytest.mark.parametrize("term", [
+    "I(x ** 2)", "I((x - 4.5) ** 2)", "I((x + -4.5) ** 2)", "np.log(x)", "np.exp(-z)",
+    "np.maximum(x - 4.5, 0)", "np.minimum(x, 6) + np.abs(z)", "np.sqrt(x)", "x:z:u",
+    "np.sin(2 * np.pi * t / 7) + np.cos(2 * np.pi * t / 7)",
+    "np.sin(4 * np.pi * t / 7) + np.cos(4 * np.pi * t / 7)", "I(-x / 2 + 3 * z ** 2 - +u)",
+    "I(2 ** 3 * x)", "center(x):z", "C(g):x", "C(g)", "I(t >= 150)", "C(h):x:z",
+])
+def test_numeric_values_equal_patsy_values(term):
+    df = _data()
+    study = af.Study(df, "y ~ z + x")
+    block = study._current.term_block(term)[0]  # source: patsy's columns
+    np.testing.assert_allclose(_fast(study, term), block, rtol=1e-13, atol=1e-13)
+
+
 def test_spline_columns_equal_patsy_columns():
     df = _data()
     study = af.Study(df, "y ~ z")
@@ -431,6 +445,9 @@ def test_bad_rows_argument_says_what_to_pass():
         evaluate_block("x", frame, np.ones(3, bool), intercept=True)
     with pytest.raises(TypeError, match="DataFrame"):
         evaluate_block("x", frame.to_numpy(), None, intercept=True)
+    bare = evaluate_block("x", frame, None, intercept=True)
+    assert not np.shares_memory(bare, frame["x"].to_numpy())  # a copy, never a view
+    assert evaluate_block("I(x * 1" + "0" * 400 + ")", frame, None, intercept=True) is None
     full = evaluate_block("x:z", frame, None, intercept=True)  # None: every frame row
     assert full.shape == (len(frame), 1) and full.flags.c_contiguous
     np.testing.assert_array_equal(full[:, 0], frame["x"].to_numpy() * frame["z"].to_numpy())
