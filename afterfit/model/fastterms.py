@@ -91,9 +91,11 @@ def evaluate_block(term: str, frame: pd.DataFrame, rows: np.ndarray | None, *,
     ``standardize()``, ``cr(x, df=k)`` with or without ``constraints="center"``; products of
     numeric factors (``x:z``); ``C(g)`` alone (model with intercept: indicators of all levels
     but the first, as treatment coding); ``C(g)`` times numeric factors (``x`` times every
-    level's indicator: with the current design this spans what patsy's coding adds whether or
-    not ``x`` is in the model); a comparison ``I(t >= c)`` alone (with intercept: one 0/1
-    column).
+    level's indicator, or every level but the first when ``model_terms`` holds ``x``: with the
+    current design either spans what patsy's coding adds); a comparison ``I(t >= c)`` alone
+    (with intercept: one 0/1 column) or times numeric factors (as a two-level ``C()``).
+    Categorical x categorical, ``bs``/``cc``/``te``, ``C()`` with contrasts or levels, and
+    anything outside the whitelist return None.
 
     Deliberate differences from patsy, both on the safe side: a comparison with a missing
     operand gives a missing row (patsy reads it as False), and integer columns are read as
