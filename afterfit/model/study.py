@@ -28,6 +28,7 @@ from afterfit.model.ols import LeastSquares, fit_ols
 __all__ = ["Study", "Fit", "Step", "State"]
 
 _SAVE_VERSION = 1
+_SHADOWING = {"C", "I", "Q", "np", "cr", "bs", "cc", "te", "center", "standardize", "scale"}
 _COV_TYPES = ("nonrobust", "HC0", "HC1", "HC2", "HC3")
 
 
@@ -336,6 +337,14 @@ class Study:
             raise ValueError(
                 "the data frame's index has duplicate labels, so rows could not be named in "
                 "exclusions; use df.reset_index(drop=True) (or a unique key) first"
+            )
+        shadow = [c for c in df.columns if c in _SHADOWING]
+        if shadow:
+            raise ValueError(
+                f"column(s) {shadow!r} have the name of a formula function (patsy reads the data "
+                "before its functions, so C(), I(), Q(), np.… or cr() would stop working, in "
+                "afterfit and in statsmodels alike); rename them first, e.g. "
+                f"df.rename(columns={{{shadow[0]!r}: {shadow[0] + '_value'!r}}})"
             )
         if cov_type not in _COV_TYPES:
             raise ValueError(f"cov_type must be one of {_COV_TYPES}, got {cov_type!r}")
@@ -726,6 +735,7 @@ class Study:
     def candidates(self) -> pd.DataFrame:
         """Candidate terms for the current model, ranked stated, evident, speculative."""
         from afterfit.model import candidates as C
+        from afterfit.model.fastterms import evaluate_block
 
         with self._lock:
             state = self.state
@@ -743,9 +753,14 @@ class Study:
                                 declarations=self.declarations, time=self.time_column,
                                 skip=tuple(skip), fit=model.ls)
             blocks, failed = [], {}
+            rows = None if model.all_finite else model.finite
             for i, c in enumerate(cands):
                 try:
-                    blocks.append(model.term_block(c.term)[0])
+                    # same span as patsy's columns without patsy's per-factor cost; None means a
+                    # shape it does not reproduce, which patsy then codes
+                    block = evaluate_block(c.term, model.cache.frame, rows,
+                                           intercept=state.intercept, model_terms=state.terms)
+                    blocks.append(block if block is not None else model.term_block(c.term)[0])
                 except (ValueError, patsy.PatsyError) as exc:
                     blocks.append(np.full((len(model.rows), 1), np.nan))
                     failed[c.term] = f"could not be evaluated: {str(exc).splitlines()[0]}"

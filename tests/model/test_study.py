@@ -216,3 +216,9 @@ def test_shared_design_buffer_never_changes_an_earlier_model():
     ref = smf.ols("y ~ x + z", df).fit()  # source: statsmodels
     np.testing.assert_allclose(child_a.X, ref.model.exog, rtol=0, atol=0)
     np.testing.assert_allclose(base.X, smf.ols("y ~ x", df).fit().model.exog, rtol=0, atol=0)
+
+
+def test_column_named_like_a_formula_function_is_refused_with_advice():
+    df = _data()
+    with pytest.raises(ValueError, match="rename"):
+        af.Study(df.rename(columns={"z": "C"}), "y ~ x")
