@@ -170,8 +170,12 @@ def main(argv=None):
     ap.add_argument("--hc-max", type=int, default=100_000)
     ap.add_argument("--peer-candidates", type=int, default=50)
     ap.add_argument("--only", choices=["construction", "step"], default=None)
+    ap.add_argument("--sizes", type=lambda t: [int(float(v)) for v in t.split(",")], default=None,
+                    help="comma-separated row counts, e.g. 1e4,1e6")
     args = ap.parse_args(argv)
     sizes = [10_000, 100_000] if args.quick else [10_000, 100_000, 1_000_000]
+    if args.sizes:
+        sizes = args.sizes
     if args.only != "step":
         print(construction_table(sizes, args.hc_max))
     if args.only != "construction":
