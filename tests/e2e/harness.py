@@ -255,3 +255,94 @@ def settle(probe, name: str = "w", *, timeout: float = 120) -> None:
         last = count if not busy else None
         time.sleep(0.6)
     raise AssertionError(f"the Explorer was still busy after {timeout} s")
+
+
+# ---------------------------------------------------------------------------------------------
+# generated notebooks and workbench actions shared by the scenario tests
+# ---------------------------------------------------------------------------------------------
+KERNELSPEC = {"kernelspec": {"name": "python3", "display_name": "Python 3 (ipykernel)",
+                             "language": "python"}}
+
+
+def write_notebook(lab, name: str, *sources: str) -> str:
+    """Write a notebook of code cells ``sources`` into the server's root; returns ``name``."""
+    import nbformat
+
+    nb = nbformat.v4.new_notebook(metadata=KERNELSPEC)
+    nb.cells = [nbformat.v4.new_code_cell(s) for s in sources]
+    nbformat.write(nb, str(lab.root / name))
+    return name
+
+
+def code_cell(page, marker: str):
+    """The visible notebook's first code cell whose source contains ``marker``."""
+    editor = page.locator(".jp-InputArea-editor", has_text=marker)
+    return page.locator(f"{VISIBLE} .jp-CodeCell", has=editor).first
+
+
+def brush(page, figure, *, x=(0.45, 0.70), y=(0.20, 0.80)) -> None:
+    """Drag a brush over a bqplot figure, from/to fractions of its plot area (0 = left/top)."""
+    figure.scroll_into_view_if_needed()
+    box = figure.locator("rect.overlay").first.bounding_box()
+    assert box, "the panel has no brush overlay"
+    page.mouse.move(box["x"] + x[0] * box["width"], box["y"] + y[0] * box["height"])
+    page.mouse.down()
+    page.mouse.move(box["x"] + x[1] * box["width"], box["y"] + y[1] * box["height"], steps=12)
+    page.mouse.up()
+
+
+def rows_in_brush(probe, key: str, name: str = "w") -> list[int]:
+    """Rows inside panel ``key``'s brushed range, from the Study's fit and data (not the grid's
+    drawn arrays, which may be a sample)."""
+    column = None if key == "fitted" else key[4:]
+    probe.run(f"""
+_p = {name}.grid.panels[{key!r}]
+_x0, _x1 = sorted(float(v) for v in _p.brush.selected_x)
+_y0, _y1 = sorted(float(v) for v in _p.brush.selected_y)
+_f = {name}.study.fit
+_x = _f.fitted if {column!r} is None else {name}.study.data.loc[_f.resid.index, {column!r}]
+_m = (_x >= _x0) & (_x <= _x1) & (_f.resid >= _y0) & (_f.resid <= _y1)
+""")
+    return probe.json("sorted(int(i) for i in _f.resid.index[_m.to_numpy()])")
+
+
+def strip_terms(workbench) -> list[str]:
+    """The terms on the workbench's model strip, as the page shows them."""
+    return [t.get_attribute("data-term")
+            for t in workbench.locator(".afterfit-strip .afterfit-term").all()]
+
+
+def drag_chip(workbench, selector: str = ".afterfit-chip") -> str:
+    """Drag the first tray chip matching ``selector`` onto the model strip; returns its term."""
+    chip = workbench.locator(selector).first
+    if not chip.count():
+        pytest.fail(f"no candidate chip matches {selector!r} in the tray")
+    term = chip.get_attribute("data-term")
+    chip.scroll_into_view_if_needed()
+    chip.drag_to(workbench.locator(".afterfit-strip").first)
+    return term
+
+
+def saved_sources(path, n: int):
+    """The cells' sources of the notebook file at ``path`` once it has ``n`` cells, else None."""
+    import nbformat
+
+    try:
+        nb = nbformat.read(str(path), as_version=4)
+    except Exception:  # mid-write
+        return None
+    return [c.source for c in nb.cells] if len(nb.cells) == n else None
+
+
+def parse_series(text: str) -> dict:
+    """``{name: value}`` from a printed pandas Series of floats (the ``dtype:`` line skipped)."""
+    out = {}
+    for line in text.strip().splitlines():
+        if line.startswith("dtype:"):
+            continue
+        name, _, value = line.rstrip().rpartition(" ")
+        try:
+            out[name.strip()] = float(value)
+        except ValueError:
+            continue
+    return out
