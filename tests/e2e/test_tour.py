@@ -12,8 +12,8 @@ import re
 
 import pytest
 
-from harness import (VISIBLE, cell_errors, open_notebook, run_all, settle, shot, until,
-                     wait_idle)
+from harness import (VISIBLE, cell_errors, open_notebook, parse_series, run_all, saved_sources,
+                     settle, shot, until, wait_idle)
 
 NOTEBOOK = "tour.ipynb"
 WIDGET_CELL = "w = af.explore("
@@ -263,29 +263,6 @@ def test_06_undo_and_redo(tour):
     shot(tour.page, "tour-08-redo")
 
 
-def _saved_cells(path, n: int):
-    import nbformat
-
-    try:
-        nb = nbformat.read(str(path), as_version=4)
-    except Exception:  # mid-write
-        return None
-    return [c.source for c in nb.cells] if len(nb.cells) == n else None
-
-
-def _parse_series(text: str) -> dict:
-    out = {}
-    for line in text.strip().splitlines():
-        if line.startswith("dtype:"):
-            continue
-        name, _, value = line.rstrip().rpartition(" ")
-        try:
-            out[name.strip()] = float(value)
-        except ValueError:
-            continue
-    return out
-
-
 def test_07_export_inserts_code_that_reproduces_the_fit(tour):
     page, wb = tour.page, tour.wb
     button = wb.locator(".afterfit-export [data-action=insert]")
@@ -303,7 +280,7 @@ def test_07_export_inserts_code_that_reproduces_the_fit(tour):
     # the editor draws only the lines in view: read the new cell's source from the saved file
     page.locator(f"{VISIBLE} .jp-Notebook").first.click(position={"x": 5, "y": 5})
     page.keyboard.press("Control+s")
-    saved = until(lambda: _saved_cells(tour.lab.root / NOTEBOOK, n_before + 1), timeout=30,
+    saved = until(lambda: saved_sources(tour.lab.root / NOTEBOOK, n_before + 1), timeout=30,
                    what="the notebook to be saved with the new cell")
     source = saved[index + 1]
     assert "smf.ols(" in source and "print(result.params)" in source
@@ -316,7 +293,7 @@ def test_07_export_inserts_code_that_reproduces_the_fit(tour):
     wait_idle(page)
     until(lambda: "dtype" in new.locator(".jp-OutputArea").inner_text(), timeout=60,
           what="the exported cell's output")
-    printed = _parse_series(new.locator(".jp-OutputArea").inner_text())
+    printed = parse_series(new.locator(".jp-OutputArea").inner_text())
     study = tour.k("{str(k): float(v) for k, v in w.study.fit.params.items()}")
     assert set(printed) == set(study)
     for name, value in study.items():
