@@ -37,7 +37,6 @@ _TILE_ELEMENTS = 1 << 21
 # up to this many folds, predictions come from one matrix product over X
 _GEMM_FOLDS = 64
 _GEMM_LOOKUP = 1 << 16
-_EPS = float(np.finfo(float).eps)
 
 
 @dataclass(frozen=True, eq=False)
@@ -385,26 +384,11 @@ def _solve_small(Rt, n_rows):
     the later of two collinear columns is the one dropped.  The triangle is the exact factor of a
     matrix within rounding of the training rows, so deciding on it is as good as on the rows.
     """
+    from afterfit.model.ols import estimable_columns
+
     A = Rt[:, :-1]
     c = Rt[:, -1]
-    p = A.shape[1]
-    tol = max(n_rows, p) * _EPS
-    basis = np.zeros((A.shape[0], 0))
-    kept = []
-    for j in range(p):
-        col = A[:, j]
-        cn = float(np.linalg.norm(col))
-        if cn == 0:
-            continue
-        col = col / cn
-        # classical Gram-Schmidt twice: orthogonal to working accuracy
-        v = col - basis @ (basis.T @ col)
-        v = v - basis @ (basis.T @ v)
-        vn = float(np.linalg.norm(v))
-        if vn > tol:
-            basis = np.column_stack([basis, v / vn])
-            kept.append(j)
-    kept = np.array(kept, dtype=np.intp)
+    kept = estimable_columns(A, n_rows)
     if len(kept) == 0:
         return _Small(kept=kept, coef=np.zeros(0), rank=0, ssr=float(c @ c))
     # unit-norm columns keep the small solve as well conditioned as the problem allows

@@ -539,6 +539,31 @@ def _positive_diag(R: np.ndarray, z: np.ndarray):
     return R * sgn[:, None], z * sgn
 
 
+def estimable_columns(A: np.ndarray, n_rows: int) -> np.ndarray:
+    """Indices of the columns of a small triangle that are kept; the rest are aliased.
+
+    Columns are taken in order; one is aliased when what is left of it after projection on the
+    kept earlier columns has norm at most ``max(n_rows, p) * eps`` times its own.  Shared by the
+    fit and cross-validation so both drop the same columns.
+    """
+    p = A.shape[1]
+    tol = max(n_rows, p) * _EPS
+    Q = np.zeros((A.shape[0], 0))
+    kept = []
+    for j in range(p):
+        c = A[:, j]
+        cn = float(np.linalg.norm(c))
+        if cn == 0:
+            continue
+        v = c - Q @ (Q.T @ c)
+        v = v - Q @ (Q.T @ v)
+        vn = float(np.linalg.norm(v))
+        if vn > tol * cn:
+            Q = np.column_stack([Q, v / vn])
+            kept.append(j)
+    return np.array(kept, dtype=np.intp)
+
+
 def _rank_and_reorder(Rfull: np.ndarray, z: np.ndarray, n_rows: int):
     """Rank of the scaled design read from its triangle; R and Q'y of the kept columns.
 
@@ -551,21 +576,7 @@ def _rank_and_reorder(Rfull: np.ndarray, z: np.ndarray, n_rows: int):
     working on X.  Projections use classical Gram-Schmidt twice (orthogonal to working accuracy).
     """
     p = Rfull.shape[1]
-    tol = max(n_rows, p) * _EPS
-    Q = np.zeros((p, 0))
-    kept = []
-    for j in range(p):
-        c = Rfull[:, j]
-        cn = float(np.linalg.norm(c))
-        if cn == 0:
-            continue
-        v = c - Q @ (Q.T @ c)
-        v = v - Q @ (Q.T @ v)
-        vn = float(np.linalg.norm(v))
-        if vn > tol * cn:
-            Q = np.column_stack([Q, v / vn])
-            kept.append(j)
-    kept = np.array(kept, dtype=np.intp)
+    kept = estimable_columns(Rfull, n_rows)
     r = len(kept)
     if r == p:
         return kept, Rfull, z
