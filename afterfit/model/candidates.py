@@ -1177,9 +1177,10 @@ def pattern_scores(resid, variables, *, bins: int = 10, weights=None) -> pd.Data
     ----------
     resid : array-like, shape (n,)
         Residuals (the caller chooses raw, weighted or studentized).
-    variables : DataFrame or mapping of name to array-like
+    variables : DataFrame or mapping of name to array-like or Bins
         One entry per panel, each of length n.  Pass fitted values as a variable named
-        ``"fitted"``.
+        ``"fitted"``.  A :class:`Bins` (from :func:`bin_values`, same ``bins``) is used as
+        given, so a caller can keep the binning of a variable that does not change.
     bins : int
         Quantile bins for numeric variables (a variable with at most ``bins`` distinct values
         gets one bin per value).
@@ -1200,37 +1201,14 @@ def pattern_scores(resid, variables, *, bins: int = 10, weights=None) -> pd.Data
     With more bins the score grows by chance (about ``(bins - 1) / n`` under no structure); the
     p-value accounts for that, so rank panels by p-value when their bin counts differ.
     """
-    e = _vector(resid, "resid")
-    n = e.size
-    w = None if weights is None else _vector(weights, "weights", n)
-    if isinstance(variables, pd.DataFrame):
-        items = [(c, variables[c]) for c in variables.columns]
-    elif isinstance(variables, Mapping):
-        items = list(variables.items())
-    else:
-        raise TypeError("variables must be a DataFrame or a mapping of name to values")
-    rows = []
-    for name, values in items:
-        if isinstance(values, pd.Series):
-            s = values.reset_index(drop=True)
-        else:
-            s = pd.Series(values)
-        if len(s) != n:
-            raise ValueError(f"variable {name!r} has {len(s)} values but resid has {n}")
-        codes, kind, _ = _bin_codes(s, bins)
-        ok = (codes >= 0) & np.isfinite(e)
-        if w is not None:
-            ok &= np.isfinite(w) & (w > 0)
-        score, pvalue, k = _eta_squared(codes[ok], e[ok], None if w is None else w[ok])
-        rows.append({"score": score, "pvalue": pvalue, "bins_used": k, "kind": kind,
-                     "n_used": int(ok.sum())})
-    out = pd.DataFrame(rows, index=pd.Index([name for name, _ in items], name="variable"),
-                       columns=["score", "pvalue", "bins_used", "kind", "n_used"])
-    return out
+    return residual_profiles(resid, variables, bins=bins, weights=weights, smoothers=False)[0]
 
 
 def binned_means(x, resid, *, bins: int = 10) -> pd.DataFrame:
     """Mean residual per quantile bin of ``x`` (or per level), with a ~95 % band: the smoother.
+
+    ``x`` may be a :class:`Bins` from :func:`bin_values` (same ``bins``), which keeps the
+    binning and the per-bin x summaries of a variable that does not change between fits.
 
     Returns
     -------
@@ -1242,36 +1220,233 @@ def binned_means(x, resid, *, bins: int = 10) -> pd.DataFrame:
         ``right`` are then nanoseconds since 1970 (``pd.to_datetime`` turns them back).
     """
     e = _vector(resid, "resid")
-    s = pd.Series(x) if not isinstance(x, pd.Series) else x.reset_index(drop=True)
-    if len(s) != e.size:
-        raise ValueError(f"x has {len(s)} values but resid has {e.size}")
-    codes, kind, labels = _bin_codes(s, bins)
-    ok = (codes >= 0) & np.isfinite(e)
-    codes, e = codes[ok], e[ok]
-    k = len(labels)
-    count = np.bincount(codes, minlength=k).astype(float)
-    total = np.bincount(codes, weights=e, minlength=k)
+    b = x if isinstance(x, Bins) else bin_values(x, bins=bins)
+    if b.codes.size != e.size:
+        raise ValueError(f"x has {b.codes.size} values but resid has {e.size}")
+    return residual_profiles(e, {"x": b}, bins=bins, scores=False)[1]["x"]
+
+
+def residual_profiles(resid, variables, *, bins: int = 10, weights=None, scores: bool = True,
+                      smoothers: bool = True) -> tuple[pd.DataFrame | None, dict]:
+    """Pattern scores and smoothers of the residuals against each variable, in one pass each.
+
+    The table is :func:`pattern_scores`'s and each smoother :func:`binned_means`'s (the smoother
+    is unweighted, as there).  Both come from per-bin sums of the residuals and their squares
+    (taken about the overall mean, so nothing cancels), two ``bincount`` passes per variable.
+
+    Returns
+    -------
+    (DataFrame or None, dict of name to DataFrame)
+        The scores table (None when ``scores=False``) and the smoothers (empty when
+        ``smoothers=False``).
+    """
+    e = _vector(resid, "resid")
+    n = e.size
+    w = None if weights is None else _vector(weights, "weights", n)
+    if isinstance(variables, pd.DataFrame):
+        items = [(c, variables[c]) for c in variables.columns]
+    elif isinstance(variables, Mapping):
+        items = list(variables.items())
+    else:
+        raise TypeError("variables must be a DataFrame or a mapping of name to values")
+    fin = np.isfinite(e)
+    good = fin if w is None else fin & np.isfinite(w) & (w > 0)
+    all_fin, all_good = bool(fin.all()), bool(good.all())
+    # about the overall mean, so per-bin sums of squares do not cancel
+    centre = float(np.mean(e[fin])) if fin.any() else 0.0
+    ec = e - centre
+    ec2 = ec * ec
+    wec = wec2 = None
+    if w is not None:
+        wec, wec2 = w * ec, w * ec2
+    rows, smooth = [], {}
+    for name, values in items:
+        b = values if isinstance(values, Bins) else bin_values(values, bins=bins, name=name)
+        if b.codes.size != n:
+            raise ValueError(f"variable {name!r} has {b.codes.size} values but resid has {n}")
+        k = b.n_bins
+        unweighted = None
+        if scores:
+            kept = None if (all_good and b.complete) else (b.codes >= 0) & good
+            codes = b.codes if kept is None else b.codes[kept]
+            if w is None:
+                if kept is None:
+                    count = b.summary()[0]
+                else:
+                    count = np.bincount(codes, minlength=k).astype(float)
+                s1 = np.bincount(codes, weights=ec if kept is None else ec[kept], minlength=k)
+                s2 = np.bincount(codes, weights=ec2 if kept is None else ec2[kept], minlength=k)
+                unweighted = (kept, count, s1, s2)
+                wsum = count
+            else:
+                wsum = np.bincount(codes, weights=w if kept is None else w[kept], minlength=k)
+                s1 = np.bincount(codes, weights=wec if kept is None else wec[kept], minlength=k)
+                s2 = np.bincount(codes, weights=wec2 if kept is None else wec2[kept],
+                                 minlength=k)
+            score, pvalue, used = _eta_from_sums(wsum, s1, s2, codes.size)
+            rows.append({"score": score, "pvalue": pvalue, "bins_used": used, "kind": b.kind,
+                         "n_used": int(codes.size)})
+        if smoothers:
+            if unweighted is None:  # weighted scores (or none): the smoother is unweighted
+                kept = None if (all_fin and b.complete) else (b.codes >= 0) & fin
+                codes = b.codes if kept is None else b.codes[kept]
+                count = b.summary()[0] if kept is None else np.bincount(
+                    codes, minlength=k).astype(float)
+                s1 = np.bincount(codes, weights=ec if kept is None else ec[kept], minlength=k)
+                s2 = np.bincount(codes, weights=ec2 if kept is None else ec2[kept], minlength=k)
+                unweighted = (kept, count, s1, s2)
+            smooth[name] = _smoother_from_sums(b, centre, *unweighted)
+    table = None
+    if scores:
+        table = pd.DataFrame(rows, index=pd.Index([name for name, _ in items], name="variable"),
+                             columns=["score", "pvalue", "bins_used", "kind", "n_used"])
+    return table, smooth
+
+
+def _eta_from_sums(wsum, s1, s2, rows):
+    """Eta squared and the one-way F p-value from per-bin weight, sum and sum of squares."""
+    used = wsum > 0
+    k = int(used.sum())
+    if k == 0:
+        return np.nan, np.nan, 0
+    ws, t1, t2 = wsum[used], s1[used], s2[used]
+    sst = float(t2.sum() - t1.sum() ** 2 / ws.sum())
+    ssw = float(np.sum(np.maximum(t2 - t1 * t1 / ws, 0.0)))
+    ssb = max(sst - ssw, 0.0)
+    if k < 2:
+        return 0.0, np.nan, k
+    if not sst > 0:
+        return np.nan, np.nan, k
+    score = min(ssb / sst, 1.0)
+    if rows - k < 1:
+        return score, np.nan, k
+    F = (ssb / (k - 1)) / (ssw / (rows - k)) if ssw > 0 else np.inf
+    return score, float(special.fdtrc(k - 1, rows - k, F)), k
+
+
+def _smoother_from_sums(b, centre, kept, count, s1, s2) -> pd.DataFrame:
+    _, xc, left, right = b.summary(kept)
     with np.errstate(invalid="ignore", divide="ignore"):
-        mean = total / count
-        dev2 = np.bincount(codes, weights=(e - mean[codes]) ** 2, minlength=k)
+        mean_c = s1 / count
+        dev2 = np.maximum(s2 - s1 * mean_c, 0.0)
         sd = np.sqrt(dev2 / (count - 1))
         half = stats.t.ppf(0.975, np.maximum(count - 1, 1)) * sd / np.sqrt(count)
     half[count < 2] = np.nan
-    if kind == "numeric":
-        xv = _as_float(s)[ok]
+    mean = mean_c + centre
+    centre_col = xc if b.kind == "numeric" else np.asarray(b.labels, dtype=object)
+    out = pd.DataFrame({"centre": centre_col, "mean": mean, "lower": mean - half,
+                        "upper": mean + half, "count": count.astype(int), "left": left,
+                        "right": right})
+    return out[out["count"] > 0].reset_index(drop=True)
+
+
+@dataclass(frozen=True, eq=False)
+class Bins:
+    """The bins of one variable: a bin per row and what each bin holds.
+
+    Made by :func:`bin_values`; :func:`pattern_scores` and :func:`binned_means` accept it in
+    place of the values, so a variable that does not change between fits is binned once.
+
+    Attributes
+    ----------
+    codes : ndarray of intp
+        Bin of each row, ``0 .. n_bins - 1``; -1 where the value is missing.
+    kind : {"numeric", "categorical"}
+    labels : list
+        One label per bin: the value (few distinct values), the bin's upper-edge index
+        (quantile bins) or the level.
+    values : ndarray of float or None
+        The numeric values (NaN where missing), for the per-bin x summaries; None for
+        categoricals.
+    """
+
+    codes: np.ndarray
+    kind: str
+    labels: list
+    values: np.ndarray | None = None
+
+    @property
+    def n_bins(self) -> int:
+        return len(self.labels)
+
+    @functools.cached_property
+    def complete(self) -> bool:
+        """Whether every row has a bin (no missing values)."""
+        return bool(self.codes.size == 0 or self.codes.min() >= 0)
+
+    @functools.cached_property
+    def _summary_all(self):
+        return self._summarise(self.codes, None if self.values is None else self.values)
+
+    def summary(self, kept: np.ndarray | None = None):
+        """Per bin: row count, mean x, smallest and largest x (NaN for categoricals)."""
+        if kept is None:
+            return self._summary_all
+        return self._summarise(self.codes[kept], None if self.values is None
+                               else self.values[kept])
+
+    def _summarise(self, codes, xv):
+        k = self.n_bins
+        count = np.bincount(codes, minlength=k).astype(float)
+        if xv is None:
+            nan = np.full(k, np.nan)
+            return count, nan, nan, nan
         centre = np.bincount(codes, weights=xv, minlength=k) / np.maximum(count, 1)
         left = np.full(k, np.inf)
         right = np.full(k, -np.inf)
         np.minimum.at(left, codes, xv)
         np.maximum.at(right, codes, xv)
-        centre_col = centre
+        return count, centre, left, right
+
+
+def bin_values(x, *, bins: int = 10, name: str = "x") -> Bins:
+    """Bin a variable as :func:`pattern_scores` and :func:`binned_means` do.
+
+    Numbers and datetimes (as nanoseconds) get quantile bins, or one bin per value when they
+    have at most ``bins`` distinct values; anything else gets one bin per level (sorted).
+    """
+    if int(bins) < 2:
+        raise ValueError(f"bins must be at least 2, got {bins!r}")
+    s = x.reset_index(drop=True) if isinstance(x, pd.Series) else pd.Series(x, name=name)
+    if pd.api.types.is_datetime64_any_dtype(s.dtype):
+        # times bin like numbers (nanoseconds); missing times stay missing
+        s = pd.Series(np.where(s.isna(), np.nan, s.to_numpy().astype("datetime64[ns]")
+                               .astype(np.int64).astype(float)))
+    if not _is_numeric(s):
+        codes, uniques = pd.factorize(s, sort=True)
+        return Bins(np.asarray(codes, dtype=np.intp), "categorical", list(uniques))
+    v = _as_float(s)
+    fin = np.isfinite(v)
+    all_fin = bool(fin.all())
+    xf = v if all_fin else v[fin]
+    codes = np.full(v.size, -1, dtype=np.intp)
+    if xf.size == 0:
+        return Bins(codes, "numeric", [], v)
+    q = np.linspace(0, 1, int(bins) + 1)
+    # bins + 1 distinct order statistics prove there are more than ``bins`` distinct values, so
+    # the full sort that counts them is needed only when some of these coincide
+    at = np.unique(np.floor(q * (xf.size - 1)).astype(np.intp))
+    order_stats = np.partition(xf, at)
+    if np.unique(order_stats[at]).size < q.size:
+        distinct = np.unique(xf)
+        if distinct.size <= bins:
+            found = np.searchsorted(distinct, xf)
+            if all_fin:
+                codes = found.astype(np.intp, copy=False)
+            else:
+                codes[fin] = found
+            return Bins(codes, "numeric", list(distinct), v)
+    edges = np.unique(np.quantile(order_stats, q))
+    raw = np.searchsorted(edges[1:-1], xf, side="right")
+    # keep only bins that hold rows, numbered in order
+    present = np.bincount(raw, minlength=edges.size - 1) > 0
+    remap = np.cumsum(present) - 1
+    found = remap[raw]
+    if all_fin:
+        codes = found.astype(np.intp, copy=False)
     else:
-        left = right = np.full(k, np.nan)
-        centre_col = np.asarray(labels, dtype=object)
-    out = pd.DataFrame({"centre": centre_col, "mean": mean, "lower": mean - half,
-                        "upper": mean + half, "count": count.astype(int), "left": left,
-                        "right": right})
-    return out[out["count"] > 0].reset_index(drop=True)
+        codes[fin] = found
+    return Bins(codes, "numeric", list(np.flatnonzero(present)), v)
 
 
 def _vector(values, what, n=None) -> np.ndarray:
@@ -1279,53 +1454,3 @@ def _vector(values, what, n=None) -> np.ndarray:
     if n is not None and v.size != n:
         raise ValueError(f"{what} has {v.size} values, expected {n}")
     return v
-
-
-def _bin_codes(s: pd.Series, bins: int):
-    """Bin index per row (-1 when missing), the kind, and the bin labels."""
-    if int(bins) < 2:
-        raise ValueError(f"bins must be at least 2, got {bins!r}")
-    if pd.api.types.is_datetime64_any_dtype(s.dtype):
-        # times bin like numbers (nanoseconds); missing times stay missing
-        s = pd.Series(np.where(s.isna(), np.nan, s.to_numpy().astype("datetime64[ns]")
-                               .astype(np.int64).astype(float)))
-    if _is_numeric(s):
-        x = _as_float(s)
-        fin = np.isfinite(x)
-        codes = np.full(x.size, -1, dtype=np.intp)
-        if not fin.any():
-            return codes, "numeric", []
-        distinct = np.unique(x[fin])
-        if distinct.size <= bins:
-            codes[fin] = np.searchsorted(distinct, x[fin])
-            return codes, "numeric", list(distinct)
-        edges = np.unique(np.quantile(x[fin], np.linspace(0, 1, int(bins) + 1)))
-        raw = np.searchsorted(edges[1:-1], x[fin], side="right")
-        used, codes[fin] = np.unique(raw, return_inverse=True)
-        return codes, "numeric", list(used)
-    codes, uniques = pd.factorize(s, sort=True)
-    return np.asarray(codes, dtype=np.intp), "categorical", list(uniques)
-
-
-def _eta_squared(codes, e, w):
-    if codes.size == 0:
-        return np.nan, np.nan, 0
-    _, codes = np.unique(codes, return_inverse=True)
-    k = int(codes.max()) + 1
-    n = codes.size
-    ww = np.ones(n) if w is None else w
-    wsum = np.bincount(codes, weights=ww, minlength=k)
-    mean = np.bincount(codes, weights=ww * e, minlength=k) / wsum
-    grand = float(ww @ e / ww.sum())
-    sst = float(ww @ (e - grand) ** 2)
-    ssw = float(ww @ (e - mean[codes]) ** 2)
-    ssb = max(sst - ssw, 0.0)
-    if k < 2:
-        return 0.0, np.nan, k
-    if not sst > 0:
-        return np.nan, np.nan, k
-    score = ssb / sst
-    if n - k < 1:
-        return score, np.nan, k
-    F = (ssb / (k - 1)) / (ssw / (n - k)) if ssw > 0 else np.inf
-    return score, float(special.fdtrc(k - 1, n - k, F)), k

@@ -433,6 +433,7 @@ class Study:
         self._caches: OrderedDict = OrderedDict()
         self._models: OrderedDict = OrderedDict()
         self._cand_cache: dict = {}
+        self._by_rows: tuple | None = None  # (rows, {key: result}) for results set by rows alone
         self._examined_terms: set = set()
         state = State(terms=tuple(rhs_terms), intercept=intercept, excluded=())
         self._steps: list[Step] = []
@@ -809,61 +810,76 @@ class Study:
         """Every plottable column over the fitted rows (response and weights left out).
 
         Datetimes are given as decimal years.  A data column called "fitted" is keyed
-        "fitted (column)" so it never hides the fitted values.  Cached per model state.
+        "fitted (column)" so it never hides the fitted values.  Kept while the fitted rows stay
+        the same (adding or removing a term usually leaves them so).
         """
         model = self._current
-        hit = model.memo.get("panel_variables")
-        if hit is not None:
-            return dict(hit)
-        frame = self.data.iloc[model.rows]
-        out = {}
-        for c in self.data.columns:
-            if c == self.response or c == self.weights_name:
-                continue
-            s = frame[c]
-            if pd.api.types.is_datetime64_any_dtype(s.dtype):
-                s = pd.Series(decimal_years(s), index=s.index, name=c)
-            out["fitted (column)" if c == "fitted" else c] = s
-        model.memo["panel_variables"] = out
-        return dict(out)
+
+        def make() -> dict:
+            frame = self.data.iloc[model.rows]
+            out = {}
+            for c in self.data.columns:
+                if c == self.response or c == self.weights_name:
+                    continue
+                s = frame[c]
+                if pd.api.types.is_datetime64_any_dtype(s.dtype):
+                    s = pd.Series(decimal_years(s), index=s.index, name=c)
+                out["fitted (column)" if c == "fitted" else c] = s
+            return out
+
+        return dict(self._for_rows(model, "panel_variables", make))
+
+    def _for_rows(self, model: "_Model", key: Any, make: Callable[[], Any]) -> Any:
+        """A result that depends on the fitted rows only, kept while they stay the same."""
+        with self._lock:
+            entry = self._by_rows
+            if entry is None or not (entry[0] is model.rows or np.array_equal(entry[0],
+                                                                              model.rows)):
+                entry = self._by_rows = (model.rows, {})
+            if key not in entry[1]:
+                entry[1][key] = make()
+            return entry[1][key]
+
+    def _bins(self, model: "_Model", name: str, bins: int):
+        """The binning of panel variable ``name`` (kept while the rows stay the same)."""
+        from afterfit.model.candidates import bin_values
+
+        pv = self.panel_variables()
+        if name not in pv:
+            raise ValueError(f"{name!r} is not a plottable variable; choose from {list(pv)}")
+        return self._for_rows(model, ("bins", name, bins),
+                              lambda: bin_values(pv[name], bins=bins, name=name))
+
+    def _profiles(self, bins: int = 10) -> tuple:
+        """Pattern scores and smoothers of every panel variable, cached per model state."""
+        from afterfit.model.candidates import bin_values, residual_profiles
+
+        model = self._current
+        key = ("profiles", bins)
+        hit = model.memo.get(key)
+        if hit is None:
+            variables = {"fitted": bin_values(model.ls.fitted, bins=bins, name="fitted")}
+            variables.update({name: self._bins(model, name, bins)
+                              for name in self.panel_variables()})
+            table, smooth = residual_profiles(model.ls.resid, variables, bins=bins,
+                                              weights=model.w)
+            hit = model.memo[key] = (table.sort_values("score", ascending=False), smooth)
+        return hit
 
     def pattern_scores(self) -> pd.DataFrame:
         """How much structure the residuals still show against each variable (worst first).
 
         Includes "fitted" (the fitted values).  Cached per model state.
         """
-        from afterfit.model.candidates import pattern_scores
-
-        model = self._current
-        hit = model.memo.get("pattern_scores")
-        if hit is not None:
-            return hit.copy()
-        variables = {"fitted": model.ls.fitted}
-        variables.update({k: np.asarray(v) for k, v in self.panel_variables().items()})
-        table = pattern_scores(model.ls.resid, variables, weights=model.w)
-        table = table.sort_values("score", ascending=False)
-        model.memo["pattern_scores"] = table
-        return table.copy()
+        return self._profiles()[0].copy()
 
     def binned_means(self, name: str, *, bins: int = 10) -> pd.DataFrame:
         """The smoother of a residual panel: residual means in quantile bins with a band."""
-        from afterfit.model.candidates import binned_means
-
-        model = self._current
-        key = ("binned", name, bins)
-        hit = model.memo.get(key)
-        if hit is not None:
-            return hit.copy()
-        if name == "fitted":
-            x = model.ls.fitted
-        else:
-            pv = self.panel_variables()
-            if name not in pv:
-                raise ValueError(f"{name!r} is not a plottable variable; choose from {list(pv)}")
-            x = np.asarray(pv[name])
-        out = binned_means(x, model.ls.resid, bins=bins)
-        model.memo[key] = out
-        return out.copy()
+        smooth = self._profiles(bins)[1]
+        if name not in smooth:
+            raise ValueError(f"{name!r} is not a plottable variable; "
+                             f"choose from {list(smooth)}")
+        return smooth[name].copy()
 
     def partial_residuals(self, term: str) -> pd.DataFrame:
         """Partial residuals of a single-column numeric term: x, component + residual."""
