@@ -130,6 +130,26 @@ def test_matches_statsmodels_refits(scheme, weighted):
     assert (pf["rank"] == 5).all() and (pf["aliased"] == ()).all()
 
 
+@pytest.mark.parametrize("scheme", ["kfold", "forward"])
+@pytest.mark.parametrize("weighted", [False, True])
+def test_column_major_design_read_in_windows_matches_statsmodels(monkeypatch, scheme, weighted):
+    # the Study passes a column-major design; its rows are then read window by window, with
+    # many windows here (small tiles), including windows where some folds have no rows
+    from afterfit.model import crossval
+
+    monkeypatch.setattr(crossval, "_TILE_ELEMENTS", 2**7)
+    X, y, rng = _design(611, 4, seed=21)
+    X = np.asfortranarray(X)
+    w = rng.uniform(0.2, 3.0, len(y)) if weighted else None
+    folds = make_folds(len(y), k=9, seed=3, scheme=scheme)
+    res = cross_validate(X, y, folds, weights=w, scheme=scheme)
+    ref = _naive(X, y, folds, scheme, weights=w)  # source: statsmodels OLS/WLS refits
+    np.testing.assert_allclose(res.predictions, ref, rtol=1e-8, atol=1e-10)
+    assert res.rmse_cv == pytest.approx(_pooled(y, ref, w), rel=1e-8)
+    c_order = cross_validate(np.ascontiguousarray(X), y, folds, weights=w, scheme=scheme)
+    np.testing.assert_allclose(res.predictions, c_order.predictions, rtol=1e-10, atol=1e-12)
+
+
 def test_zero_weights_take_no_part_but_are_predicted():
     # statsmodels WLS with weight 0 drops a row's influence the same way (its whitened row is 0)
     X, y, rng = _design(90, 3, seed=12)
