@@ -47,9 +47,12 @@ from .ols import LeastSquares
 
 __all__ = ["run_checks", "vif"]
 
-# Rows per chunk for the passes over the data: keeps the White auxiliary block (chunk x ~80
-# columns) near 10 MB whatever n is.
+# Rows per chunk for the passes over the data.
 _CHUNK = 16384
+# Entries per chunk of the Breusch-Pagan and White auxiliary blocks (2 MB): small enough to stay
+# in cache between forming the columns and their product, large enough that the per-chunk
+# Python overhead is small (about 2,000 rows x 120 columns for 14 regressors).
+_CHUNK_ELEMS = 262_144
 # A column is treated as a duplicate of the others (or as a constant) when the part of it the
 # others do not explain is below this fraction of its size, in squared (Gram) terms: about
 # 3e-5 in norm terms.  Exactly dependent columns such as a 0/1 indicator squared sit at rounding
@@ -61,8 +64,6 @@ _SMALL_N = 30
 _SMALL_N_JB = 100  # the chi-square behind Jarque-Bera is known to be poor well past n = 30
 # VIF above this is called high: common practice (Marquardt 1970), not a test.
 _VIF_HIGH = 10.0
-# Multiply-adds per matrix product below which OpenBLAS stays on one thread (see _gram).
-_GEMM_SINGLE = 262_144
 # Block length of the recursive-residual recursion (see _recursive_residuals).
 _HC_BLOCK = 96
 
@@ -200,7 +201,8 @@ def run_checks(
             f"lags={lags} needs more than {lags + 1} rows; this fit has {d.n}: pass a smaller lags"
         )
     rows = [_reset(d, has_const=bool(has_const), alpha=alpha)]
-    rows += _heteroscedasticity(d, alpha=alpha)
+    rows += _breusch_pagan(d, alpha=alpha)
+    rows.append(_white(d, alpha=alpha))
     rows.append(_durbin_watson(d))
     rows.append(_ljung_box(d, lags=int(lags), alpha=alpha))
     rows.append(_jarque_bera(d, alpha=alpha))
@@ -384,31 +386,6 @@ def _constant_columns(X: np.ndarray) -> np.ndarray:
     return np.array([j for j in cand if np.all(X[:, j] == X[0, j])], dtype=int)
 
 
-def _gram(Z: np.ndarray) -> np.ndarray:
-    """``Z'Z`` for a C-ordered chunk, as a sum of products over short row blocks.
-
-    OpenBLAS runs a matrix product on one thread when it has fewer than about 2.6e5
-    multiply-adds per thread, and threads it above that.  On a busy machine the threaded path is
-    several times slower (threads wait for each other); row blocks sized under the limit keep
-    every product on one thread, cost about the same on an idle machine, and fix the summation
-    order so results are reproducible.
-    """
-    rows, K = Z.shape
-    b = max(8, _GEMM_SINGLE // (K * K))
-    nb = rows // b
-    G = np.zeros((K, K))
-    if nb:
-        A = Z[: nb * b].reshape(nb, b, K)
-        step = max(1, (1 << 21) // (K * K))  # bounds the stacked products to ~16 MB
-        for s in range(0, nb, step):
-            As = A[s:s + step]
-            G += np.matmul(As.transpose(0, 2, 1), As).sum(axis=0)
-    tail = Z[nb * b:]
-    if tail.shape[0]:
-        G += tail.T @ tail
-    return G
-
-
 def _chunks(n: int, size: int = _CHUNK):
     for s in range(0, n, size):
         yield slice(s, min(n, s + size))
@@ -569,64 +546,109 @@ def _reset(d: _Data, *, has_const: bool, alpha: float) -> _Row:
 # Breusch-Pagan and White
 
 
-def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
-    names = ("Breusch-Pagan (Koenker)", "Breusch-Pagan (original)", "White")
-    if d.exact:
-        return [_undefined(nm, _EXACT) for nm in names]
+_BP_NAMES = ("Breusch-Pagan (Koenker)", "Breusch-Pagan (original)")
+
+
+@dataclass(frozen=True, eq=False)
+class _Aux:
+    """Centred cross products of an auxiliary regression of ``u = e^2 / mean(e^2)``."""
+
+    G: np.ndarray    # (q, q) centred Gram of the auxiliary columns
+    c: np.ndarray    # (q,) centred cross products with u
+    tss: float       # centred sum of squares of u
+    ref: np.ndarray  # (q,) uncentred sums of squares of the auxiliary columns
+    u_ref: float     # uncentred sum of squares of u
+    m: int           # number of non-constant regressors
+
+
+def _aux_cross_products(d: _Data, *, products: bool) -> _Aux | None:
+    """One chunked pass: Gram of [regressors, (their products,) u, 1], centred afterwards.
+
+    Regressors are centred at their means and scaled by powers of two (exact), so squares and
+    products are not nearly collinear with the linear terms; with the constant in the auxiliary
+    regression this changes neither statistic.  Each chunk is shifted by the first chunk's
+    column means before its product, so the centring at the end cancels little.  A column of
+    ones carried along gives the column sums from the same matrix product.  Returns None when
+    the model has no non-constant regressor.
+    """
     nc = np.setdiff1d(np.arange(d.k), d.const_cols)
     m = nc.size
     if m == 0:
-        why = ("the model has no regressor besides the constant, so there is nothing for the "
-               "spread to depend on.")
-        return [_undefined(nm, why) for nm in names]
+        return None
     n = d.n
-    Xn = d.X[:, nc] if m < d.k else d.X
-    mu = Xn.mean(axis=0)
-    sd = Xn.std(axis=0)
-    sd[sd == 0] = 1.0
+    X = d.X
+    mu = X.mean(axis=0)[nc]
+    # a slice keeps each chunk a view of the (column-major) design; a gather only if needed
+    cols = slice(int(nc[0]), int(nc[-1]) + 1) if np.all(np.diff(nc) == 1) else nc
+    nprod = m * (m + 1) // 2 if products else 0
+    q = m + nprod
+    K = q + 2  # auxiliary columns, u, ones
+    rows = max(256, _CHUNK_ELEMS // K)
     sigma2 = _dot(d.e, d.e) / n  # ML variance: the original Breusch-Pagan scale
-    nprod = m * (m + 1) // 2
-    ncol = m + nprod + 1  # linear, products, and u = e^2 / sigma2 last
-
-    G = np.zeros((ncol, ncol))
-    sums = np.zeros(ncol)
-    shift = None
-    for sl in _chunks(n):
-        xs = (Xn[sl] - mu) / sd
-        Z = np.empty((xs.shape[0], ncol))
-        Z[:, :m] = xs
+    G = np.zeros((K, K))
+    # column-major like the design: every column operation below runs on contiguous memory
+    Z = np.empty((min(rows, n), K), order="F")
+    Z[:, -1] = 1.0
+    scale = shift = None
+    for sl in _chunks(n, rows):
+        c = sl.stop - sl.start
+        Zc = Z[:c]
+        xs = Zc[:, :m]
+        np.subtract(X[sl, cols], mu, out=xs)
+        if scale is None:
+            # powers of two near each column's spread: exact, and they keep the products
+            # away from overflow whatever the units
+            rms = np.sqrt(np.einsum("ij,ij->j", xs, xs) / c)
+            rms[~(rms > 0) | ~np.isfinite(rms)] = 1.0
+            scale = np.exp2(-np.round(np.log2(rms)))
+        xs *= scale
         off = m
-        for i in range(m):
-            np.multiply(xs[:, i:], xs[:, i:i + 1], out=Z[:, off:off + m - i])
+        for i in range(m if products else 0):
+            np.multiply(xs[:, i:], xs[:, i:i + 1], out=Zc[:, off:off + m - i])
             off += m - i
         es = d.e[sl]
-        Z[:, -1] = es * es / sigma2
+        np.multiply(es, es, out=Zc[:, q])
+        Zc[:, q] /= sigma2
         if shift is None:
-            # shifting by the first chunk's means keeps the later centring free of cancellation
-            shift = Z.mean(axis=0)
-        Z -= shift
-        G += _gram(Z)
-        sums += Z.sum(axis=0)
+            shift = Zc[:, :-1].mean(axis=0)
+        Zc[:, :-1] -= shift
+        # one large product per chunk: OpenBLAS runs it near peak speed (many small products
+        # cost several times more per multiply-add)
+        G += Zc.T @ Zc
+    sums = G[:-1, -1]
+    Gs = G[:-1, :-1]
     mean_dev = sums / n
-    Gc = G - n * np.outer(mean_dev, mean_dev)
-    raw_sq = np.diag(G) + 2 * shift * sums + n * shift**2  # uncentred sums of squares
-    Gz, cz, tss = Gc[:-1, :-1], Gc[:-1, -1], Gc[-1, -1]
-    ref = raw_sq[:-1]
-    if not tss > 1e-14 * raw_sq[-1]:
-        why = "the squared residuals are all equal, so their variation cannot be explained."
-        return [_undefined(nm, why) for nm in names]
-    lin = np.arange(m)
-    ess_bp, r_bp = _gram_quad(Gz[np.ix_(lin, lin)], cz[lin], ref[lin])
-    ess_w, r_w = _gram_quad(Gz, cz, ref)
+    Gc = Gs - n * np.outer(mean_dev, mean_dev)
+    raw_sq = np.diag(Gs) + 2 * shift * sums + n * shift**2  # uncentred sums of squares
+    return _Aux(G=Gc[:q, :q], c=Gc[:q, q], tss=float(Gc[q, q]), ref=raw_sq[:q],
+                u_ref=float(raw_sq[q]), m=m)
+
+
+_NO_REGRESSOR = ("the model has no regressor besides the constant, so there is nothing for the "
+                 "spread to depend on.")
+_EQUAL_U = "the squared residuals are all equal, so their variation cannot be explained."
+
+
+def _breusch_pagan(d: _Data, *, alpha: float) -> list[_Row]:
+    names = _BP_NAMES
+    if d.exact:
+        return [_undefined(nm, _EXACT) for nm in names]
+    aux = _aux_cross_products(d, products=False)
+    if aux is None:
+        return [_undefined(nm, _NO_REGRESSOR) for nm in names]
+    if not aux.tss > 1e-14 * aux.u_ref:
+        return [_undefined(nm, _EQUAL_U) for nm in names]
+    n = d.n
+    ess, r = _gram_quad(aux.G, aux.c, aux.ref)
     rows = []
     # Koenker (studentized): n R^2; original: ESS / 2 of e^2 / sigma2 (R bptest)
-    for nm, label, stat in ((names[0], "Breusch-Pagan, Koenker form,", n * ess_bp / tss),
-                            (names[1], "Breusch-Pagan, original form,", ess_bp / 2)):
-        if n - r_bp - 1 < 1:
+    for nm, label, stat in ((names[0], "Breusch-Pagan, Koenker form,", n * ess / aux.tss),
+                            (names[1], "Breusch-Pagan, original form,", ess / 2)):
+        if n - r - 1 < 1:
             rows.append(_undefined(nm, f"{n} rows are too few for an auxiliary regression on "
-                                       f"{r_bp} variables."))
+                                       f"{r} variables."))
             continue
-        p = float(stats.chi2.sf(stat, r_bp))
+        p = float(stats.chi2.sf(stat, r))
         if p < alpha:
             reading = (f"Spread changes with the regressors: the squared residuals track the "
                        f"model's variables ({label} {_fmt_p(p)}). Consider robust (HC) standard "
@@ -635,17 +657,30 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
             reading = (f"No sign that the residual spread changes with the model's variables "
                        f"({label} {_fmt_p(p)}).")
         note = "" if nm == names[0] else "assumes normal errors; the Koenker form does not"
-        rows.append(_Row(nm, float(stat), str(r_bp), p, reading, note))
-    ncols_aux = ncol - 1
+        rows.append(_Row(nm, float(stat), str(r), p, reading, note))
+    return rows
+
+
+def _white(d: _Data, *, alpha: float) -> _Row:
+    name = "White"
+    if d.exact:
+        return _undefined(name, _EXACT)
+    aux = _aux_cross_products(d, products=True)
+    if aux is None:
+        return _undefined(name, _NO_REGRESSOR)
+    if not aux.tss > 1e-14 * aux.u_ref:
+        return _undefined(name, _EQUAL_U)
+    n, m = d.n, aux.m
+    ess, r = _gram_quad(aux.G, aux.c, aux.ref)
+    ncols_aux = aux.ref.size
     note = f"{ncols_aux} auxiliary columns from {m} regressor{'s' if m > 1 else ''}"
-    if r_w < ncols_aux:
-        note += f", {ncols_aux - r_w} dropped as duplicates of others"
-    if n - r_w - 1 < 1:
-        rows.append(_undefined(names[2], f"{n} rows are too few for White's auxiliary regression "
-                                         f"on {r_w} columns.", note))
-        return rows
-    stat = n * ess_w / tss
-    p = float(stats.chi2.sf(stat, r_w))
+    if r < ncols_aux:
+        note += f", {ncols_aux - r} dropped as duplicates of others"
+    if n - r - 1 < 1:
+        return _undefined(name, f"{n} rows are too few for White's auxiliary regression on {r} "
+                                "columns.", note)
+    stat = n * ess / aux.tss
+    p = float(stats.chi2.sf(stat, r))
     if p < alpha:
         reading = (f"Spread changes with the regressors, their squares or their products "
                    f"(White {_fmt_p(p)}). Consider robust (HC) standard errors or weights, and "
@@ -653,8 +688,7 @@ def _heteroscedasticity(d: _Data, *, alpha: float) -> list[_Row]:
     else:
         reading = (f"No sign that the residual spread depends on the regressors, their squares "
                    f"or products (White {_fmt_p(p)}).")
-    rows.append(_Row(names[2], float(stat), str(r_w), p, reading, note))
-    return rows
+    return _Row(name, float(stat), str(r), p, reading, note)
 
 
 # --------------------------------------------------------------------------------------------

@@ -61,8 +61,9 @@ def afterfit_parts(ls, lags: int) -> dict:
     t, d = timed(lambda: _checks._prepare(ls, has_const=True, order=None))
     out["(shared preparation)"] = t
     out["RESET"] = timed(lambda: _checks._reset(d, has_const=True, alpha=0.05))[0]
-    t = timed(lambda: _checks._heteroscedasticity(d, alpha=0.05))[0]
-    out["Breusch-Pagan + White (one pass)"] = t
+    out["Breusch-Pagan (both forms, one pass)"] = timed(
+        lambda: _checks._breusch_pagan(d, alpha=0.05))[0]
+    out["White"] = timed(lambda: _checks._white(d, alpha=0.05))[0]
     out["Durbin-Watson"] = timed(lambda: _checks._durbin_watson(d))[0]
     out["Ljung-Box"] = timed(lambda: _checks._ljung_box(d, lags=lags, alpha=0.05))[0]
     out["Jarque-Bera"] = timed(lambda: _checks._jarque_bera(d, alpha=0.05))[0]
