@@ -64,8 +64,13 @@ _SMALL_N = 30
 _SMALL_N_JB = 100  # the chi-square behind Jarque-Bera is known to be poor well past n = 30
 # VIF above this is called high: common practice (Marquardt 1970), not a test.
 _VIF_HIGH = 10.0
-# Block length of the recursive-residual recursion (see _recursive_residuals).
-_HC_BLOCK = 96
+# Recursive residuals (see _recursive_residuals): rows per inner block (one Cholesky
+# factorisation of k + _HC_BLOCK + 1 columns each), the most rows per outer block, and the
+# bound on the sum of the block's whitened squared row lengths (its information matrices then
+# have condition numbers below 1 + _HC_TAU).
+_HC_BLOCK = 32
+_HC_OUTER = 8192
+_HC_TAU = 32.0
 
 _COLUMNS = ["statistic", "df", "pvalue", "reading", "note"]
 
@@ -176,9 +181,13 @@ def run_checks(
       ``sigma^2 (I + V V')`` with ``V = X_block R^{-1}``; the recursive residuals are those
       errors whitened by the Cholesky factor of that matrix (the one-step innovations), so the
       sequential loop runs over blocks, not rows, at O(n p^2 + n b^2) cost for blocks of b
-      rows.  The recursion starts from the first ``k`` rows in order, as R ``recresid`` does;
-      if those rows cannot determine all coefficients it starts from the shortest prefix that
-      can, and says so in ``note``.  It runs on all rows at any n.
+      rows.  Blocks are limited so that the matrices inside them stay well conditioned,
+      whatever the design's own conditioning; the factor ``R`` is carried from block to
+      block, and columns far from zero for their spread are centred first (with a constant
+      column this changes no recursive residual).  The recursion starts from the first ``k``
+      rows in order, as R ``recresid`` does; if those rows cannot determine all coefficients
+      it starts from the shortest prefix that can, and says so in ``note``.  It runs on all
+      rows at any n.
     * An exact fit leaves nothing to test: every test row is NaN with a reading saying so.  A
       fit counts as exact when ``ls.exact_fit`` says so, or when the residual norm is below
       ``max(1e-10, 100 eps cond)`` times the norm of the centred (without intercept, uncentred)
@@ -823,13 +832,39 @@ def _harvey_collier(d: _Data, *, alpha: float) -> _Row:
 
 
 def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
-    """Recursive residuals of the whitened model in time order, by blocks (see run_checks)."""
+    """Recursive residuals of the whitened model in time order, by blocks (see run_checks).
+
+    Each outer block starts from the fit to all earlier rows: its QR factor ``R`` (updated by
+    Householder QR, as a row-by-row update would be, so it stays accurate on ill-conditioned
+    designs) and coefficients ``b``.  In coordinates whitened by ``R`` that fit is the identity
+    information matrix with zero cross products.  A block takes rows while the sum of their
+    whitened squared lengths ``|x R^-1|^2`` stays below ``_HC_TAU``, which bounds the condition
+    number of every information matrix inside it by ``1 + _HC_TAU`` whatever the design's own
+    conditioning; a single row beyond that bound is handled alone by the one-row formula.  The
+    block is cut into inner blocks of ``_HC_BLOCK`` rows whose recursive residuals all come from
+    one stack of Cholesky factorisations (see ``_inner_recursive``), so the Python loop runs
+    once per outer block (about ``n / _HC_OUTER`` times on ordinary data).
+    """
     n, k = d.n, d.k
     perm, sw = d.perm, d.sw
+    # Recursive residuals depend on the columns only through the spaces that the leading rows
+    # span, so with a constant column the others may be moved by a multiple of it.  A column
+    # far from zero for its spread (a calendar year, a timestamp) is centred: it then no longer
+    # nearly repeats the constant.  Only columns whose every value lies on the mean's side
+    # beyond half the mean are moved; for them x - mean is no larger than x, so no digit of the
+    # data is lost (centring values near zero, such as a power of time, would lose them).
+    centre = None
+    if d.const_cols.size and n:
+        mean = d.X.mean(axis=0)
+        lossless = ((d.X.min(axis=0) >= mean / 2) & (mean > 0)) | (
+            (d.X.max(axis=0) <= mean / 2) & (mean < 0))
+        lossless[d.const_cols] = False
+        if lossless.any():
+            centre = np.where(lossless, mean, 0.0)
 
     def rows(a: int, b: int):
         idx = slice(a, b) if perm is None else perm[a:b]
-        Xb = d.X[idx]
+        Xb = d.X[idx] if centre is None else d.X[idx] - centre
         yb = d.y[idx]
         if sw is not None:
             s = sw[idx]
@@ -842,31 +877,95 @@ def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
         return None, 0
     X0, y0 = rows(0, start)
     Ra = np.linalg.qr(np.column_stack([X0, y0]), mode="r")
-    Rk, z = Ra[:k, :k], Ra[:k, k]
+    R, z = np.triu(Ra[:k, :k]), Ra[:k, k]
+    eye = np.eye(k)
+    m = _HC_BLOCK
+    # one bordered matrix per inner block (see _inner_recursive), allocated once
+    B = np.zeros((-(-_HC_OUTER // m), k + m + 1, k + m + 1))
+    B[:, np.arange(k, k + m), np.arange(k, k + m)] = 1.0
     out = np.empty(n - start)
     s = start
+    ask = m
     while s < n:
-        e = min(n, s + _HC_BLOCK)
-        Xb, yb = rows(s, e)
-        # np.linalg.inv and matmul rather than triangular solves: OpenBLAS threads its
-        # triangular solves even for 12 x 12 inputs, which costs milliseconds per call on a
-        # busy machine; these stay in microseconds
-        Rinv = np.linalg.inv(Rk)
-        V = Xb @ Rinv
-        S = V @ V.T
-        S[np.diag_indices_from(S)] += 1.0
-        L = np.linalg.cholesky(S)
-        out[s - start:e - start] = sla.solve_triangular(L, yb - Xb @ (Rinv @ z), lower=True,
-                                                        check_finite=False)
-        A = np.empty((k + e - s, k + 1))
-        A[:k, :k] = Rk
-        A[:k, k] = z
-        A[k:, :k] = Xb
-        A[k:, k] = yb
-        Ra = np.linalg.qr(A, mode="r")
-        Rk, z = Ra[:k, :k], Ra[:k, k]
-        s = e
+        b = sla.solve_triangular(R, z, check_finite=False)
+        Xb, yb = rows(s, min(n, s + ask))
+        # R^-1 explicitly, then a product: as accurate here as a triangular solve per row (the
+        # block is chosen so that nothing below is ill-conditioned) and several times cheaper
+        V = Xb @ sla.solve_triangular(R, eye, check_finite=False)
+        q = np.einsum("ij,ij->i", V, V)
+        size = min(Xb.shape[0], max(1, int(np.searchsorted(np.cumsum(q), _HC_TAU, side="right"))))
+        Xb, yb, V = Xb[:size], yb[:size], V[:size]
+        r = yb - Xb @ b  # prediction errors from the fit to the rows before the block
+        # a power of two brings r near 1 (exact): the bordered matrix holds its squares
+        big = float(np.max(np.abs(r)))
+        rs = math.ldexp(1.0, -math.frexp(big)[1]) if 0 < big < math.inf else 1.0
+        r = r * rs
+        if size == 1:
+            out[s - start] = r[0] / math.sqrt(1.0 + q[0]) / rs
+        else:
+            out[s - start:s - start + size] = _inner_recursive(V, r, B) / rs
+        # Fold the block into the fit.  [R z; Xb yb] = [I 0; V r] [R z; 0 1], and the QR
+        # factor of [I 0; V r] comes from the Cholesky factor C of I + V'V (condition number
+        # below 1 + _HC_TAU, so this is as accurate as a Householder update): R <- C'R,
+        # z <- C'z + C^-1 V'r.
+        C = np.linalg.cholesky(eye + V.T @ V)
+        z = C.T @ z + sla.solve_triangular(C, V.T @ r, lower=True, check_finite=False) / rs
+        R = C.T @ R
+        s += size
+        ask = min(_HC_OUTER, max(m, 2 * size))
     return out, start
+
+
+def _inner_recursive(V: np.ndarray, r: np.ndarray, B: np.ndarray) -> np.ndarray:
+    """Recursive residuals of rows ``V`` (whitened) with prediction errors ``r`` (see below).
+
+    The prior is the identity information with zero cross products.  For an inner block with
+    rows ``W``, errors ``e`` and prior information ``G`` with cross products ``h`` (sums over
+    the earlier inner blocks), the block's recursive residuals are ``L^-1 (e - W G^-1 h)`` with
+    ``L L' = I + W G^-1 W'``.  With ``A = G + W'W``, ``a = h + W'e`` and ``F`` the row reversal,
+    the Schur complement of ``A`` in ``[[A, W'F], [FW, I]]`` is ``F (I + W G^-1 W')^-1 F``,
+    whose Cholesky factor is ``F L^-T F``; bordering with ``[a, Fe]`` makes the last row of the
+    Cholesky factor of::
+
+        [[A,    W'F,  a ],
+         [FW,   I,    Fe],
+         [a',   e'F,  c ]]
+
+    equal to ``[*, F L^-1 (e - W G^-1 h), *]``: the recursive residuals, reversed.  ``c`` only
+    has to keep the matrix positive definite: ``2 (h'h + e'e) + 1`` does, since ``a'A^-1 a``
+    plus the squared recursive residuals is at most ``h'G^-1 h + e'e``.  ``B`` is the
+    buffer for the bordered matrices, its identity blocks already set; the rest is overwritten.
+    """
+    size, k = V.shape
+    m = _HC_BLOCK
+    J = -(-size // m)
+    # rows of zeros pad the last inner block at its end: later rows never change earlier ones
+    Vs = np.zeros((J * m, k))
+    Vs[:size] = V
+    Vs = Vs.reshape(J, m, k)
+    es = np.zeros(J * m)
+    es[:size] = r
+    es = es.reshape(J, m)
+    U = np.matmul(Vs.transpose(0, 2, 1), Vs)
+    hv = np.einsum("jik,ji->jk", Vs, es)
+    A = np.cumsum(U, axis=0)
+    A[:, np.arange(k), np.arange(k)] += 1.0
+    a = np.cumsum(hv, axis=0)
+    h_before = a - hv
+    Wf = Vs[:, ::-1, :]
+    ef = es[:, ::-1]
+    B = B[:J]
+    B[:, :k, :k] = A
+    B[:, k:k + m, :k] = Wf
+    B[:, :k, k:k + m] = Wf.transpose(0, 2, 1)
+    B[:, -1, :k] = a
+    B[:, :k, -1] = a
+    B[:, -1, k:k + m] = ef
+    B[:, k:k + m, -1] = ef
+    B[:, -1, -1] = 2.0 * (np.einsum("jk,jk->j", h_before, h_before)
+                          + np.einsum("ji,ji->j", es, es)) + 1.0
+    L = np.linalg.cholesky(B)
+    return L[:, -1, k:k + m][:, ::-1].reshape(-1)[:size]
 
 
 def _full_rank_start(rows, n: int, k: int) -> int | None:
