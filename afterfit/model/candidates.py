@@ -700,6 +700,48 @@ def score_candidates(
     return out
 
 
+def score_candidates_in_groups(ls, blocks, *, method: str = "holm", alpha: float = 0.05,
+                               searched=None, max_columns: int = 16) -> pd.DataFrame:
+    """:func:`score_candidates` with the candidates' columns made a group at a time.
+
+    ``blocks`` is a sequence of callables, each returning one candidate's columns (as a block of
+    :func:`score_candidates`).  Candidates are scored in groups of at most ``max_columns``
+    columns (a larger block forms a group alone), so only one group's columns exist at a time;
+    each block's evidence does not depend on the others in its call, and the multiplicity
+    adjustment is made once over all of them.  Returns the same table as
+    :func:`score_candidates` on all the blocks at once.
+    """
+    m = len(blocks)
+    searched = np.ones(m, dtype=int) if searched is None else np.asarray(searched, dtype=int)
+    parts, group, width = [], [], 0
+
+    def flush():
+        if group:
+            mats = [z for _, z in group]
+            idx = [i for i, _ in group]
+            parts.append(score_candidates(ls, mats, method=method, alpha=alpha,
+                                          searched=searched[idx]))
+            group.clear()
+
+    for i, make in enumerate(blocks):
+        z = np.asarray(make(), dtype=float)
+        z = z[:, None] if z.ndim == 1 else z
+        if group and width + z.shape[1] > max_columns:
+            flush()
+            width = 0
+        group.append((i, z))
+        width += z.shape[1]
+    flush()
+    if not parts:
+        return score_candidates(ls, [], method=method, alpha=alpha)
+    out = pd.concat(parts, ignore_index=True)
+    out["p_adjusted"] = adjust_pvalues(out["pvalue"].to_numpy(dtype=float), method=method)
+    out["reject"] = out["p_adjusted"].to_numpy() < alpha
+    out.attrs.update(examined=int(np.isfinite(out["pvalue"].to_numpy(dtype=float)).sum()),
+                     method=method, alpha=alpha)
+    return out
+
+
 def _check_blocks(blocks, n):
     if isinstance(blocks, np.ndarray) and blocks.ndim == 2:
         raise TypeError("blocks must be a sequence of arrays, one per candidate (got one matrix)")
@@ -1128,7 +1170,8 @@ def _search_corrected(cands, sc: pd.DataFrame) -> pd.DataFrame:
     return sc
 
 
-def delta_cv(X, y, folds, blocks, *, top: int = 10, weights=None, scheme: str = "kfold"):
+def delta_cv(X, y, folds, blocks, *, top: int = 10, weights=None, scheme: str = "kfold",
+             base: float | None = None, extend=None):
     """Change in cross-validated RMSE if each of the first ``top`` candidates were added.
 
     Parameters
@@ -1145,6 +1188,11 @@ def delta_cv(X, y, folds, blocks, *, top: int = 10, weights=None, scheme: str = 
     weights : array-like, optional
     scheme : str
         Passed to :func:`~afterfit.model.crossval.cross_validate`.
+    base : float, optional
+        The current model's ``rmse_cv`` on these folds, when already known.
+    extend : callable, optional
+        ``extend(z)`` returns ``[X | z]`` (column-major) from space the caller has, or None;
+        by default a new array is made for each block.
 
     Returns
     -------
@@ -1155,14 +1203,23 @@ def delta_cv(X, y, folds, blocks, *, top: int = 10, weights=None, scheme: str = 
     from afterfit.model.crossval import cross_validate
 
     X = np.asarray(X, dtype=float)
-    mats = _check_blocks(blocks, X.shape[0])
+    n, p = X.shape
+    mats = _check_blocks(blocks, n)
     out = np.full(len(mats), np.nan)
-    base = cross_validate(X, y, folds, weights=weights, scheme=scheme).rmse_cv
+    if base is None:
+        base = cross_validate(X, y, folds, weights=weights, scheme=scheme).rmse_cv
     for i, z in enumerate(mats[: max(int(top), 0)]):
         if z.shape[1] == 0 or not np.isfinite(z).all():
             continue
-        cv = cross_validate(np.hstack([X, z]), y, folds, weights=weights, scheme=scheme)
+        Xz = None if extend is None else extend(z)
+        if Xz is None:
+            # column-major, as the Study's designs: cross-validation reads it window by window
+            Xz = np.empty((n, p + z.shape[1]), order="F")
+            Xz[:, :p] = X
+            Xz[:, p:] = z
+        cv = cross_validate(Xz, y, folds, weights=weights, scheme=scheme)
         out[i] = cv.rmse_cv - base
+        del Xz
     return out
 
 
@@ -1364,6 +1421,13 @@ class Bins:
     kind: str
     labels: list
     values: np.ndarray | None = None
+
+    def __post_init__(self):
+        # the smallest signed integers that hold every bin: a Study keeps one array per variable
+        k = len(self.labels)
+        small = np.int8 if k < 127 else np.int16 if k < 32767 else np.int32
+        if self.codes.dtype != small:
+            object.__setattr__(self, "codes", self.codes.astype(small))
 
     @property
     def n_bins(self) -> int:

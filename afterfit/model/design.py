@@ -53,20 +53,18 @@ def working_frame(df: pd.DataFrame, columns=None) -> pd.DataFrame:
     The user's frame is never modified (a new frame is built; pandas copy-on-write makes untouched
     columns free).
     """
-    cols = list(df.columns) if columns is None else list(columns)
-    out = {}
-    for c in cols:
-        s = df[c]
+    # a shallow copy: numeric columns keep sharing the user's arrays (nothing is copied), and
+    # copy-on-write keeps the user's frame as it is whatever is set here
+    frame = (df if columns is None else df[list(columns)]).copy(deep=False)
+    frame.index = pd.RangeIndex(len(frame))
+    for i in range(frame.shape[1]):
+        s = frame.iloc[:, i]
         if s.dtype == object or pd.api.types.is_string_dtype(s.dtype):
             vals = s.to_numpy(dtype=object)
             try:
-                s = pd.Series(pd.Categorical(vals), name=c)
+                frame.isetitem(i, pd.Categorical(vals))
             except TypeError:  # unorderable mixed types: leave it to patsy's own error
-                s = pd.Series(vals, name=c, dtype=object)
-        else:
-            s = pd.Series(s.to_numpy(), name=c, dtype=s.dtype)
-        out[c] = s
-    frame = pd.DataFrame(out, index=pd.RangeIndex(len(df)))
+                frame.isetitem(i, pd.Series(vals, dtype=object, index=frame.index))
     return frame
 
 
@@ -152,7 +150,8 @@ class DesignCache:
         self._memorize(factors)
         return _make_subterm_infos(list(terms), self._num_cols, self._cat_levels)
 
-    def columns(self, term, subterms) -> TermColumns:
+    def columns(self, term, subterms, *, keep: bool = True) -> TermColumns:
+        """One term's columns; kept for later designs unless ``keep=False`` (a one-off look)."""
         key = (term, _coding_key(subterms))
         hit = self._terms.get(key)
         if hit is not None:
@@ -164,10 +163,29 @@ class DesignCache:
         for st in subterms:
             names.extend(_subterm_column_names_iter(finfo, st))
         di = DesignInfo(names, factor_infos=finfo, term_codings=OrderedDict([(term, subterms)]))
-        values = self._evaluate(di, self.frame)
+        values = self._plain_column(term)
+        if values is None:
+            values = self._evaluate(di, self.frame)
         tc = TermColumns(term=term, names=tuple(names), values=values, design_info=di)
-        self._terms[key] = tc
+        if keep:
+            self._terms[key] = tc
         return tc
+
+    def _plain_column(self, term) -> np.ndarray | None:
+        """A term that is one float column of the frame, as a view of it (no copy), else None.
+
+        Under copy-on-write the view is read-only, so nothing here can change the user's data.
+        """
+        if len(term.factors) != 1:
+            return None
+        f = term.factors[0]
+        if self._num_cols.get(f) != 1 or f.code not in self.frame.columns:
+            return None
+        col = self.frame[f.code]
+        if not isinstance(col, pd.Series) or col.dtype != np.float64:
+            return None
+        values = col.to_numpy()
+        return values.reshape(-1, 1) if values.flags.c_contiguous else None
 
     def _evaluate(self, di: DesignInfo, frame: pd.DataFrame) -> np.ndarray:
         n = len(frame)

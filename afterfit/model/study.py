@@ -7,6 +7,7 @@ for a state on demand and cached, so undo/redo give back exactly the earlier num
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import hashlib
 import json
 import math
@@ -141,7 +142,7 @@ class _Model:
         self.finite = ok
         self.all_finite = bool(ok.all())
         self.avail = avail
-        self.rows = avail[ok]  # positions in the user's data
+        self.rows = avail if self.all_finite else avail[ok]  # positions in the user's data
         self.dropped = avail[~ok]
         self._buffer, self.X = self._assemble(tcs, ok, study._last_model)
         if not self.all_finite:
@@ -251,23 +252,45 @@ class _Model:
 
     @cached_property
     def checks(self) -> pd.DataFrame:
+        return self.run_checks(None)
+
+    def run_checks(self, only) -> pd.DataFrame:
         from afterfit.model.checks import run_checks
 
         order = None
         if self.study._time is not None:
             order = self.study._time[self.rows]
-        return run_checks(self.ls, has_const=self.state.intercept, order=order)
+        if only is None:
+            return run_checks(self.ls, has_const=self.state.intercept, order=order)
+        return run_checks(self.ls, has_const=self.state.intercept, order=order, only=only)
 
     @cached_property
     def cv(self):
         from afterfit.model.crossval import cross_validate
 
         st = self.study
-        folds = st._folds[self.rows]
+        every = len(self.rows) == len(st._folds)  # every row (so in order): no copy
+        folds = st._folds if every else st._folds[self.rows]
         return cross_validate(self.X, self.y, folds, weights=self.w, scheme=st.cv_scheme)
+
+    def extended(self, z: np.ndarray) -> np.ndarray | None:
+        """``[X | z]`` written into this design's spare buffer columns, or None when none are free.
+
+        The spare columns belong to no model until a child model claims them (``used``), and
+        the child writes its own columns there, so borrowing them for a look changes nothing.
+        """
+        buf = self._buffer
+        p, q = self.X.shape[1], z.shape[1]
+        with self.study._lock:
+            if buf is None or buf["used"] != p or buf["data"].shape[1] < p + q:
+                return None
+            buf["data"][:, p:p + q] = z
+            return buf["data"][:, :p + q]
 
     def frame(self) -> pd.DataFrame:
         """The user's columns on the fitted rows (positional index), for candidates and plots."""
+        if self.all_finite:  # every row: the working frame itself (nothing copied)
+            return self.cache.frame
         return self.cache.frame.iloc[np.nonzero(self.finite)[0]].reset_index(drop=True)
 
     def term_block(self, term: str) -> tuple[np.ndarray, list[str]]:
@@ -279,7 +302,7 @@ class _Model:
         codings = self.cache.codings(have + new)
         cols, names = [], []
         for t in new:
-            tc = self.cache.columns(t, codings[t])
+            tc = self.cache.columns(t, codings[t], keep=False)  # a candidate's look only
             cols.append(tc.values if self.all_finite else tc.values[self.finite])
             names.extend(tc.names)
         if not cols:
@@ -356,7 +379,10 @@ class Study:
             raise ValueError(f"holdout must be a fraction in [0, 1), got {holdout!r}")
         if not (0 < float(alpha) < 1):
             raise ValueError(f"alpha must be in (0, 1), got {alpha!r}")
-        self.data = df
+        # a shallow copy: pandas' copy-on-write keeps it as it is now, whatever later happens
+        # to the user's frame, without copying any values
+        self.data = df.copy(deep=False)
+        self._fingerprint: str | None = None
         self.cov_type = cov_type
         self.alpha = float(alpha)
         self.multiplicity = multiplicity
@@ -433,6 +459,7 @@ class Study:
         self._caches: OrderedDict = OrderedDict()
         self._models: OrderedDict = OrderedDict()
         self._cand_cache: dict = {}
+        self._summaries: dict = {}  # state -> CV numbers and rank for the meter
         self._by_rows: tuple | None = None  # (rows, {key: result}) for results set by rows alone
         self._examined_terms: set = set()
         state = State(terms=tuple(rhs_terms), intercept=intercept, excluded=())
@@ -478,7 +505,10 @@ class Study:
             self._frame.take(avail).reset_index(drop=True)
         hit = (DesignCache(frame), avail)
         self._caches[key] = hit
-        while len(self._caches) > 3:
+        # a cache holds term columns (and, with exclusions, a copy of the frame): fewer on large
+        # tables
+        keep = 3 if len(self._frame) * max(self._frame.shape[1], 1) < (1 << 24) else 2
+        while len(self._caches) > keep:
             self._caches.popitem(last=False)
         return hit
 
@@ -491,7 +521,11 @@ class Study:
             cache, avail = self._cache_for(state.excluded_positions)
             m = _Model(self, state, cache, avail)
             self._models[state] = m
-            while len(self._models) > 6:
+            # each model keeps its fit, influence and cross-validation (about 16 columns of
+            # rows): keep six for instant undo on small tables, only the last two on large ones
+            per_model = 8 * 16 * max(len(m.rows), 1)
+            keep = int(min(6, max(2, (1 << 27) // per_model)))
+            while len(self._models) > keep:
                 self._models.popitem(last=False)
             return m
 
@@ -560,9 +594,33 @@ class Study:
         """Leverage, studentized residuals, Cook's distance, DFFITS and flags (common practice)."""
         return self._current.influence
 
-    def checks(self) -> pd.DataFrame:
-        """Specification tests: statistic, df, p-value and a plain reading of each."""
-        return self._current.checks
+    def checks(self, *, only: Sequence[str] | None = None) -> pd.DataFrame:
+        """Specification tests: statistic, df, p-value and a plain reading of each.
+
+        ``only`` names the checks wanted (index labels of the full table, "VIF" for every VIF
+        row); the rest are not computed.  Results are cached per model state.
+        """
+        model = self._current
+        if only is None:
+            return model.checks
+        if isinstance(only, str):
+            only = (only,)
+        only = tuple(only)
+        key = ("checks", only)
+        hit = model.memo.get(key)
+        if hit is None:
+            full = model.__dict__.get("checks")  # the full table, when it has been computed
+            if full is None:
+                hit = model.run_checks(only)
+            else:
+                names = [str(t) for t in full.index if not str(t).startswith("VIF: ")] + ["VIF"]
+                unknown = [o for o in only if o not in names]
+                if unknown:
+                    raise ValueError(f"unknown check(s) {unknown}; choose from {names}")
+                hit = full.loc[[t for t in full.index
+                                if t in only or ("VIF" in only and str(t).startswith("VIF: "))]]
+            model.memo[key] = hit
+        return hit.copy()
 
     @property
     def cv(self):
@@ -753,29 +811,38 @@ class Study:
             cands = C.catalogue(frame, response=self.response, model_terms=list(state.terms),
                                 declarations=self.declarations, time=self.time_column,
                                 skip=tuple(skip), fit=model.ls)
-            blocks, failed = [], {}
+            failed = {}
             rows = None if model.all_finite else model.finite
-            for i, c in enumerate(cands):
+
+            def block_of(c) -> np.ndarray:
                 try:
                     # same span as patsy's columns without patsy's per-factor cost; None means a
                     # shape it does not reproduce, which patsy then codes
                     block = evaluate_block(c.term, model.cache.frame, rows,
                                            intercept=state.intercept, model_terms=state.terms)
-                    blocks.append(block if block is not None else model.term_block(c.term)[0])
+                    return block if block is not None else model.term_block(c.term)[0]
                 except (ValueError, patsy.PatsyError) as exc:
-                    blocks.append(np.full((len(model.rows), 1), np.nan))
                     failed[c.term] = f"could not be evaluated: {str(exc).splitlines()[0]}"
-            scores = C.score_candidates(model.ls, blocks, method=self.multiplicity,
-                                        alpha=self.alpha, searched=[c.searched for c in cands])
+                    return np.full((len(model.rows), 1), np.nan)
+
+            # a group of candidates' columns at a time, about half the design's width, so the
+            # candidates never hold much more memory than the design itself
+            scores = C.score_candidates_in_groups(
+                model.ls, [functools.partial(block_of, c) for c in cands],
+                method=self.multiplicity, alpha=self.alpha,
+                searched=[c.searched for c in cands], max_columns=max(4, model.X.shape[1] // 2))
             table = C.rank_candidates(cands, scores, alpha=self.alpha)
             if failed:
                 table["note"] = [failed.get(t, n) for t, n in zip(table["term"], table["note"])]
-            # change in CV RMSE for the leading candidates (each costs about one fit)
-            where = {c.term: i for i, c in enumerate(cands)}
-            ordered = [blocks[where[t]] for t in table["term"]]
-            table["delta_cv"] = C.delta_cv(model.X, model.y, self._folds[model.rows], ordered,
-                                           top=self.delta_cv_top, weights=model.w,
-                                           scheme=self.cv_scheme)
+            # change in CV RMSE for the leading candidates (each costs about one fit); their
+            # columns are made again here, a few at most
+            where = {c.term: c for c in cands}
+            top = [block_of(where[t]) for t in table["term"][: self.delta_cv_top]]
+            change = C.delta_cv(model.X, model.y, self._folds[model.rows], top,
+                                top=self.delta_cv_top, weights=model.w,
+                                scheme=self.cv_scheme, base=model.cv.rmse_cv,
+                                extend=model.extended)
+            table["delta_cv"] = np.concatenate([change, np.full(len(table) - len(top), np.nan)])
             table.attrs.setdefault("examined", len(cands))
             self._cand_cache[state] = table
             self._examined_terms.update(c.term for c in cands)
@@ -907,6 +974,19 @@ class Study:
                              "band": 1.96 / math.sqrt(n)})
 
     # -- meter and comparison -------------------------------------------------------------------
+    def _summary(self, state: State) -> dict:
+        """A state's cross-validation numbers and rank, kept for good (a few numbers), so the
+        meter never refits an earlier step whose model has left the cache."""
+        with self._lock:
+            hit = self._summaries.get(state)
+            if hit is None:
+                m = self._model(state)
+                cv = m.cv
+                hit = self._summaries[state] = {
+                    "rmse_train": cv.rmse_train, "rmse_cv": cv.rmse_cv,
+                    "rmse_cv_se": cv.rmse_cv_se, "rank": m.ls.rank}
+            return hit
+
     def meter(self) -> pd.DataFrame:
         """Training and cross-validated RMSE for every step up to the current one."""
         rows = []
@@ -914,20 +994,19 @@ class Study:
         base_terms = set(self._steps[0].state.terms)
         examined = 0
         for s in self._steps[: self._position + 1]:
-            m = self._model(s.state)
-            cv = m.cv
+            cv = self._summary(s.state)
             examined += s.examined
             terms = set(s.state.terms)
             rows.append({
                 "step": s.index, "label": s.detail, "kind": s.kind,
-                "rmse_train": cv.rmse_train, "rmse_cv": cv.rmse_cv, "rmse_cv_se": cv.rmse_cv_se,
-                "gap": cv.rmse_cv - cv.rmse_train,
-                "delta_cv": np.nan if prev is None else cv.rmse_cv - prev,
-                "n_params": m.ls.rank,
+                "rmse_train": cv["rmse_train"], "rmse_cv": cv["rmse_cv"],
+                "rmse_cv_se": cv["rmse_cv_se"], "gap": cv["rmse_cv"] - cv["rmse_train"],
+                "delta_cv": np.nan if prev is None else cv["rmse_cv"] - prev,
+                "n_params": cv["rank"],
                 "terms_added": len(terms - base_terms), "terms_removed": len(base_terms - terms),
                 "examined": examined,
             })
-            prev = cv.rmse_cv
+            prev = cv["rmse_cv"]
         df = pd.DataFrame(rows)
         df["worse"] = df["delta_cv"] > 0
         # one-standard-error rule: the simplest model within one SE of the best CV error
@@ -1023,10 +1102,12 @@ class Study:
 
     def fingerprint(self) -> str:
         """A hash of the data (values, index and column names) to recognise it on load."""
-        h = hashlib.sha256()
-        h.update(json.dumps([str(c) for c in self.data.columns]).encode())
-        h.update(pd.util.hash_pandas_object(self.data, index=True).to_numpy().tobytes())
-        return h.hexdigest()
+        if self._fingerprint is None:  # the Study's data cannot change, so hash it once
+            h = hashlib.sha256()
+            h.update(json.dumps([str(c) for c in self.data.columns]).encode())
+            h.update(pd.util.hash_pandas_object(self.data, index=True).to_numpy().tobytes())
+            self._fingerprint = h.hexdigest()
+        return self._fingerprint
 
     def save(self, path) -> None:
         """Write the timeline and options as JSON (the data itself is not stored)."""

@@ -32,6 +32,7 @@ from afterfit.model.candidates import (
     pattern_scores,
     rank_candidates,
     score_candidates,
+    score_candidates_in_groups,
 )
 from afterfit.model.crossval import make_folds
 from afterfit.model.ols import fit_ols
@@ -568,3 +569,25 @@ def test_rank_applies_a_missing_search_correction():
     assert searched > 1
     _, p, _ = _reference(formula, step.term, df)  # source: statsmodels compare_f_test
     np.testing.assert_allclose(step.pvalue, min(1.0, p * searched), rtol=1e-8)
+
+
+@pytest.mark.parametrize("weights", [None, "w"])
+def test_scoring_in_groups_equals_scoring_at_once(weights):
+    # the Study makes candidates' columns a group at a time to bound memory; every number must
+    # be the one from scoring all blocks together, and the evidence statsmodels' nested F test
+    df = _frame()
+    formula = "y ~ x + z"
+    ls = _fit(formula, df, weights)
+    terms = ["I(x ** 2)", "C(g)", "C(g):x", "u", "np.sin(2 * np.pi * t)", "x:z", "I(z ** 3)"]
+    blocks = [_block(t, df) for t in terms]
+    searched = [1, 1, 1, 1, 1, 3, 1]
+    whole = score_candidates(ls, blocks, searched=searched, method="holm")
+    grouped = score_candidates_in_groups(ls, [lambda b=b: b for b in blocks], searched=searched,
+                                         method="holm", max_columns=3)
+    assert grouped.attrs["examined"] == whole.attrs["examined"] == len(terms)
+    pd.testing.assert_frame_equal(grouped.drop(columns="note"), whole.drop(columns="note"),
+                                  rtol=1e-12)
+    assert list(grouped["note"]) == list(whole["note"])
+    F, p, d = _reference(formula, "C(g):x", df, weights)  # source: statsmodels compare_f_test
+    assert grouped.loc[2, "statistic"] == pytest.approx(F, rel=1e-8)
+    assert grouped.loc[2, "pvalue"] == pytest.approx(p, rel=1e-6)

@@ -59,6 +59,20 @@ def test_missing_rows_reported_and_data_untouched():
     pd.testing.assert_frame_equal(df, before)
 
 
+def test_later_changes_to_the_users_frame_do_not_reach_the_study():
+    # the Study shares the user's arrays (no copy) but keeps its data as it was: a refit after
+    # the user edits the frame in place must equal statsmodels on the original values
+    df = _data()
+    original = df.copy(deep=True)
+    s = af.Study(df, "y ~ x + z + C(g)")
+    df.loc["r0", "x"] = 1e6
+    df["z"] = 0.0
+    s.add("I(x ** 2)", reason="checking the frame is kept")
+    ref = smf.ols("y ~ x + z + C(g) + I(x ** 2)", original).fit()  # source: statsmodels
+    pd.testing.assert_series_equal(s.fit.params, ref.params, check_names=False, rtol=1e-9)
+    assert s.data.loc["r0", "x"] == original.loc["r0", "x"]
+
+
 def test_bad_inputs_say_what_to_do():
     df = _data()
     with pytest.raises(ValueError, match="~"):
