@@ -198,6 +198,12 @@ function render({ model, el }) {
   /** @param {"code"|"audit"} what */
   async function copy(what) {
     const text = String(model.get(what) || "");
+    if (!text) {
+      say(what === "audit"
+        ? "The audit log is being prepared after the last change (the specification checks run last); try again in a few seconds."
+        : "There is nothing to copy yet.", true);
+      return;
+    }
     const shown = boxWhat === what && !box.hidden ? area : null;
     const how = await copyText(doc, text, shown);
     if (closed) return;

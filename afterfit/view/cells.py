@@ -22,7 +22,7 @@ from typing import Any
 
 import traitlets
 
-from afterfit.view._static import StudyWidget, _BadRequest, esm_path, request_text
+from afterfit.view._static import StudyWidget, _BadRequest, _describe, esm_path, request_text
 
 __all__ = ["ExportBridge", "current_cell_id", "ipylab_frontend_class"]
 
@@ -113,6 +113,20 @@ class ExportBridge(StudyWidget):
     def _pull(self) -> None:
         self.code = str(self._study.to_code())
         self.audit = str(self._study.audit())
+
+    def refresh_code(self) -> None:
+        """Send the current code now and clear the audit log until :meth:`refresh` rebuilds it.
+
+        The audit log reports every specification check, which on large tables take seconds;
+        an empty log tells the page to say it is being prepared rather than copy a stale one.
+        """
+        try:
+            with self.hold_sync():
+                self.code = str(self._study.to_code())
+                self.audit = ""
+                self.error = ""
+        except Exception as exc:  # the page shows the text; the kernel keeps running
+            self.error = _describe(exc)
 
     def note_cell(self) -> None:
         """Record the cell being executed as the widget's cell (call it when displaying)."""

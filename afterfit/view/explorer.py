@@ -33,7 +33,10 @@ __all__ = ["Explorer"]
 _PROGRESS_AFTER = 1.0  # seconds before the status line shows a moving progress bar
 _TICK = 0.25
 _REFRESH_WAIT = 30.0  # most seconds the worker waits for the page to catch up between actions
-_PRIMARY = ("header", "model strip", "fit meter", "residual grid", "row inspector", "timeline", "export")
+_PRIMARY = ("header", "model strip", "fit meter", "residual grid", "row inspector", "timeline",
+            "export code")
+# the checks the residual grid ranks panels by; the rest (White, Harvey-Collier, ...) come later
+GRID_CHECKS = ("Jarque-Bera", "Breusch-Pagan (Koenker)", "Ljung-Box")
 _SMALL_N_PER_PARAMETER = 10  # rows per parameter below which a fit is called small (common practice)
 
 
@@ -256,6 +259,9 @@ class Explorer(W.VBox):
                 # Study's results are computed here, off the page's thread, and cached per state.
                 self._stage(job, "redraw", self._warm_primary, _PRIMARY)
                 self._stage(job, "update candidate terms", self._warm_tray, ("term tray",))
+                # the audit log reports every specification check; on large tables White's and
+                # Harvey-Collier's take seconds, so they run last
+                self._stage(job, "run the specification checks", self._warm_checks, ("export",))
             with self._cv:
                 self._running = None
                 self._cv.notify_all()
@@ -283,10 +289,13 @@ class Explorer(W.VBox):
     def _warm_primary(self) -> None:
         s = self._study
         s.fit, s.influence, s.pattern_scores(), s.meter()
-        s.checks()
+        s.checks(only=GRID_CHECKS)
 
     def _warm_tray(self) -> None:
         self._study.candidates()
+
+    def _warm_checks(self) -> None:
+        self._study.checks()
 
     def _tick(self, job: _Job) -> None:
         while True:
@@ -351,7 +360,8 @@ class Explorer(W.VBox):
         """Redraw the named parts (default: every part) from the Study's current state, in one batch."""
         self.refresh_count += 1
         problems = []
-        every = (("header", None), ("model strip", None), ("term tray", self.tray),
+        every = (("header", None), ("model strip", None), ("export code", None),
+                 ("term tray", self.tray),
                  ("fit meter", self.meter),
                  ("residual grid", self.grid), ("row inspector", self.inspector),
                  ("timeline", self.timeline), ("export", self.export))
@@ -365,6 +375,9 @@ class Explorer(W.VBox):
                     elif name == "model strip":
                         if parts is not None:  # a full refresh updates the whole tray anyway
                             self.tray.refresh_terms()
+                    elif name == "export code":
+                        if parts is not None:  # a full refresh updates the whole export bar
+                            self.export.refresh_code()
                     elif hasattr(part, "refresh"):
                         part.refresh()
                 except Exception as exc:  # one broken part must not blank the others

@@ -108,6 +108,17 @@ test("Copy audit log uses the clipboard and reports it", async () => {
   assert.match(status(), /Copied the audit log/);
 });
 
+test("an audit log still being prepared is not copied: the status says so", async () => {
+  const written = [];
+  const navigator = { clipboard: { writeText: async (t) => written.push(t) } };
+  const { button, model, status } = setup({ navigator, state: { audit: "" } });
+  button("copy-audit").click();
+  await tick();
+  assert.deepEqual(written, []);
+  assert.deepEqual(model.sent, []);
+  assert.match(status(), /being prepared/);
+});
+
 test("a refused clipboard falls back to select-all and the browser's copy command", async () => {
   const navigator = { clipboard: { writeText: async () => Promise.reject(new Error("denied")) } };
   const { button, model, doc, box, el } = setup({ navigator, execCommand: (name) => name === "copy" });

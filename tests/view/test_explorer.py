@@ -143,8 +143,11 @@ def test_actions_run_on_the_worker_and_everything_follows(wire, study):
     w.run(act, f"add {SQUARE}")
     assert w.wait(60)
     assert seen == ["afterfit-worker"]
-    # two staged refreshes per change: grid, meter, timeline and model strip; then candidates
-    assert w.refresh_count == before + 2
+    # three staged refreshes per change: grid, meter, timeline, model strip and code; then
+    # candidates; then the specification checks and the audit log
+    assert w.refresh_count == before + 3
+    assert SQUARE in w.export.code
+    assert _undated(w.export.audit) == _undated(study.audit())
     assert SQUARE in w.tray.terms
     assert SQUARE not in [c["term"] for c in w.tray.candidates]
     assert SQUARE in w.header.value
@@ -205,8 +208,8 @@ def test_changes_from_another_cell_show(wire, study):
     w = Explorer(study)
     before = w.refresh_count
     study.exclude(study.rows[:2], "duplicate entries")  # as from another cell
-    assert w.wait(60)  # the worker computes, then redraws in two stages
-    assert w.refresh_count == before + 2
+    assert w.wait(60)  # the worker computes, then redraws in three stages
+    assert w.refresh_count == before + 3
     assert "2 excluded" in w.header.value
     assert [o[0] for o in w.inspector.excluded_list.options][0].endswith("duplicate entries")
     study.undo()
@@ -326,3 +329,17 @@ def test_explore_accepts_an_existing_study(wire, study):
         af.explore(study, "y ~ x")
     with pytest.raises(TypeError, match="formula"):
         af.explore(study.data)
+
+
+def test_audit_log_waits_for_the_checks_but_code_does_not(wire, study):
+    # the code is sent with the first redraw; the audit log (every specification check) only
+    # after the checks have run, and until then it is empty, so the page says it is coming
+    w = Explorer(study)
+    w.refresh(("export code",))
+    assert w.export.code == study.to_code() and w.export.audit == ""
+    w.refresh(("export",))
+    assert _undated(w.export.audit) == _undated(study.audit())
+
+
+def _undated(audit: str) -> list[str]:
+    return [line for line in audit.splitlines() if not line.startswith("Generated ")]
