@@ -23,7 +23,7 @@ from statsmodels.datasets import longley, macrodata
 from statsmodels.stats.outliers_influence import variance_inflation_factor
 from statsmodels.stats.stattools import durbin_watson, jarque_bera
 
-from afterfit.model.checks import run_checks, vif
+from afterfit.model.checks import CHECK_NAMES, _prepare, _recursive_residuals, run_checks, vif
 from afterfit.model.ols import fit_ols
 
 TESTS = ["RESET", "Breusch-Pagan (Koenker)", "Breusch-Pagan (original)", "White",
@@ -304,6 +304,55 @@ def test_statistics_do_not_depend_on_units_or_offsets():
                                rtol=1e-8)
 
 
+def _trending_design(seed, n):
+    """Seeded design whose spread and one regressor drift over the rows (test input only)."""
+    rng = np.random.default_rng(seed)
+    t = np.arange(n)
+    x1 = rng.standard_normal(n)
+    x2 = rng.standard_normal(n) + 0.002 * t
+    x3 = rng.standard_normal(n)
+    X = np.column_stack([np.ones(n), x1, x2, x3])
+    y = X @ [1.0, 0.5, -0.3, 0.2] + 0.1 * x1**2 + rng.standard_normal(n) * (1 + 0.5 * (t > n / 2))
+    return X, y
+
+
+def test_recursive_residuals_match_statsmodels_over_many_blocks():
+    # 3,000 rows: the recursion runs through single-row steps, several outer blocks and padded
+    # inner blocks; every recursive residual is compared with statsmodels'
+    # recursive_olsresiduals (its scaled residuals, rresid_scaled)
+    X, y = _trending_design(101, 3000)
+    ls = fit_ols(X, y)
+    w, start = _recursive_residuals(_prepare(ls, has_const=True, order=None))
+    ref = smd.recursive_olsresiduals(_sm_ols(X, y))[4][4:]
+    assert start == 4 and w.shape == ref.shape
+    np.testing.assert_allclose(w, ref, rtol=0, atol=1e-10 * np.sqrt(np.mean(ref**2)))
+    hc = _sm_harvey_collier(X, y)
+    r = run_checks(ls, only=["Harvey-Collier"])
+    assert r.loc["Harvey-Collier", "statistic"] == pytest.approx(hc.statistic, rel=1e-10)
+
+
+@pytest.mark.parametrize("T", [
+    # a calendar-year-like offset, a large offset with a big scale, and a near-duplicate column
+    [[1, 2024.0, -7e3, 0], [0, 1e-2, 0, 1], [0, 0, 1e2, 1], [0, 0, 0, 1e-4]],
+    [[1, 0, 0, 0], [0, 1, 0, 1], [0, 0, 1, 1], [0, 0, 0, 1e-5]],
+])
+def test_harvey_collier_on_ill_conditioned_design(T):
+    # Recursive residuals depend on the columns only through the spaces the leading rows span,
+    # so X @ T (T invertible) has the same ones as X.  statsmodels on the well-conditioned X is
+    # the reference for afterfit on the ill-conditioned X @ T (condition number 1e6 to 1e13;
+    # statsmodels' own update through inv(X'X) cannot be trusted there).
+    X, y = _trending_design(102, 3000)
+    Xi = X @ np.array(T)
+    assert np.linalg.cond(Xi) > 1e5
+    ref = smd.recursive_olsresiduals(_sm_ols(X, y))[4][4:]
+    ls = fit_ols(Xi, y)
+    w, _ = _recursive_residuals(_prepare(ls, has_const=True, order=None))
+    np.testing.assert_allclose(w, ref, rtol=0, atol=1e-6 * np.sqrt(np.mean(ref**2)))
+    hc = _sm_harvey_collier(X, y)
+    r = run_checks(ls, only=["Harvey-Collier"])
+    assert r.loc["Harvey-Collier", "statistic"] == pytest.approx(hc.statistic, rel=1e-7)
+
+
 def test_harvey_collier_late_start_matches_statsmodels_skip():
     # an indicator that is 0 for the first 30 rows: the first k rows cannot fix its coefficient,
     # so the recursion starts at the first prefix that can (row 31), as statsmodels with skip=31
@@ -513,3 +562,59 @@ def test_not_a_fit():
         run_checks(np.zeros((3, 3)))
     with pytest.raises(TypeError, match="fit_ols"):
         vif("model")
+
+
+# ------------------------------------------------------------------------------------------
+# a subset of the checks
+
+
+@pytest.mark.parametrize("only", [
+    ("Jarque-Bera", "Breusch-Pagan (Koenker)", "Ljung-Box"),  # the workbench's quick set
+    ("Ljung-Box", "Durbin-Watson", "Jarque-Bera", "Breusch-Pagan (Koenker)"),
+    ("VIF", "White"),
+    ("Breusch-Pagan (original)", "Harvey-Collier", "RESET"),
+    CHECK_NAMES,
+])
+def test_subset_equals_rows_of_full_table(only):
+    # weighted, with a time order and a zero-weight row, so every note and caveat is in play
+    X, y = _random_design(111, n=300, p=4)
+    rng = np.random.default_rng(112)
+    w = rng.uniform(0.5, 2.0, 300)
+    w[7] = 0.0
+    t = rng.permutation(300)
+    ls = fit_ols(X, y, weights=w)
+    full = run_checks(ls, order=t, large_n=100)
+    sub = run_checks(ls, order=t, large_n=100, only=only)
+    wanted = [i for i in full.index if i in only or (i.startswith("VIF: ") and "VIF" in only)]
+    pd.testing.assert_frame_equal(sub, full.loc[wanted], check_exact=True)
+
+
+def test_subset_on_reference_model_keeps_reference_values(macro):
+    ls, full = macro
+    sub = run_checks(ls, lags=4, only=["Ljung-Box", "Breusch-Pagan (Koenker)", "Jarque-Bera"])
+    assert list(sub.index) == ["Breusch-Pagan (Koenker)", "Ljung-Box", "Jarque-Bera"]
+    pd.testing.assert_frame_equal(sub, full.loc[sub.index], check_exact=True)
+    # R lmtest::bptest(fm) and Box.test(lag=4), statsmodels test_diagnostic.py
+    assert sub.loc["Breusch-Pagan (Koenker)", "statistic"] == pytest.approx(0.709924388395087,
+                                                                            rel=1e-10)
+    assert sub.loc["Ljung-Box", "statistic"] == pytest.approx(5.23587172795227, rel=1e-10)
+
+
+def test_empty_subset_is_an_empty_table(macro):
+    ls, full = macro
+    r = run_checks(ls, only=())
+    assert r.shape == (0, 5) and r.index.name == "test"
+    assert list(r.dtypes) == list(full.dtypes)
+
+
+@pytest.mark.parametrize("only,exc,match", [
+    (("White", "Whit"), ValueError, "'Whit'.*valid names: 'RESET'.*'VIF'"),
+    (("VIF: gdp_growth",), ValueError, '"VIF" selects every VIF row'),
+    ("Ljung-Box", ValueError, r"only=\('Ljung-Box',\)"),
+    ((1,), ValueError, "unknown check name 1"),
+    (3, TypeError, "collection of check names"),
+])
+def test_bad_subset_names_say_what_is_valid(macro, only, exc, match):
+    ls, _ = macro
+    with pytest.raises(exc, match=match):
+        run_checks(ls, only=only)
