@@ -108,13 +108,14 @@ class StudyWidget(anywidget.AnyWidget):
 
     _requests: dict[str, str] = {}
 
-    def __init__(self, study: Any, *, run: RunFn | None = None) -> None:
+    def __init__(self, study: Any, *, run: RunFn | None = None, pull: bool = True) -> None:
         super().__init__()
         self._study = study
         self._run = run
         self._unsubscribe: Callable[[], Any] | None = None
         self.on_msg(self._on_request)
-        self.refresh()
+        if pull:  # pull=False: the owner refreshes it later (the Explorer, on large tables)
+            self.refresh()
         subscribe = getattr(study, "subscribe", None)
         if run is None and callable(subscribe):
             # a weak reference, so a forgotten widget does not live as long as its Study

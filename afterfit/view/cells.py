@@ -105,9 +105,10 @@ class ExportBridge(StudyWidget):
 
     _requests = {"insert": "_request_insert", "exported": "_request_exported"}
 
-    def __init__(self, study: Any, *, run: Any = None, frontend: Any = None) -> None:
+    def __init__(self, study: Any, *, run: Any = None, frontend: Any = None,
+                 pull: bool = True) -> None:
         self._frontend = frontend
-        super().__init__(study, run=run)
+        super().__init__(study, run=run, pull=pull)
         self.note_cell()
 
     def _pull(self) -> None:

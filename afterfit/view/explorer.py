@@ -33,6 +33,8 @@ __all__ = ["Explorer"]
 _PROGRESS_AFTER = 1.0  # seconds before the status line shows a moving progress bar
 _TICK = 0.25
 _REFRESH_WAIT = 30.0  # most seconds the worker waits for the page to catch up between actions
+_LATER_ROWS = 200_000  # from this many rows the tray and audit log fill in after the display
+_LATER = "__later__"
 _PRIMARY = ("header", "model strip", "fit meter", "residual grid", "row inspector", "timeline",
             "export code")
 # the checks the residual grid ranks panels by; the rest (White, Harvey-Collier, ...) come later
@@ -129,12 +131,18 @@ class Explorer(W.VBox):
         from afterfit.view.timeline import Timeline
         from afterfit.view.tray import Tray
 
-        self.tray = Tray(study, run=self.run)
+        # on large tables the candidate terms and the specification checks take seconds: the
+        # workbench shows without them and the worker fills them in (status line meanwhile)
+        later = len(study.rows) >= _LATER_ROWS
+        self.tray = Tray(study, run=self.run, pull=not later)
         self.meter = Meter(study, run=self.run)
         self.grid = ResidualGrid(study, run=self.run, budget=budget, max_panels=max_panels)
         self.inspector = RowInspector(study, run=self.run)
         self.timeline = Timeline(study, run=self.run)
-        self.export = ExportBridge(study, run=self.run)
+        self.export = ExportBridge(study, run=self.run, pull=not later)
+        if later:
+            self.tray.refresh_terms()
+            self.export.refresh_code()
         self.grid.on_select(self.inspector.show_rows)
 
         section = {"margin": "8px 0 0 0"}
@@ -167,6 +175,8 @@ class Explorer(W.VBox):
                 me._changed()
 
         self._unsubscribe = study.subscribe(follow)
+        if later:
+            self.run(lambda: None, "prepare the term tray and the audit log", key=_LATER)
 
     @property
     def study(self) -> Any:
@@ -253,6 +263,9 @@ class Explorer(W.VBox):
                 self._refresh_queued = False
             if error is not None:
                 self._post(lambda j=job, e=error: self._show_error(j, e))
+            if job.key == _LATER and error is None and not refresh_due and not self._closed:
+                self._stage(job, "find candidate terms", self._warm_tray, ("term tray",))
+                self._stage(job, "run the specification checks", self._warm_checks, ("export",))
             if refresh_due and not self._closed:
                 # the grid, meter and timeline first; candidate terms (the slow part on large
                 # tables) after them, so a refit shows as soon as its own numbers exist.  The

@@ -343,3 +343,19 @@ def test_audit_log_waits_for_the_checks_but_code_does_not(wire, study):
 
 def _undated(audit: str) -> list[str]:
     return [line for line in audit.splitlines() if not line.startswith("Generated ")]
+
+
+def test_large_tables_show_first_and_fill_the_tray_and_audit_in_later(wire, study, monkeypatch):
+    # on a large table the candidate terms and the checks take seconds: the workbench is shown
+    # without them and the worker fills them in (here a small table stands in for a large one)
+    from afterfit.view import explorer as E
+
+    monkeypatch.setattr(E, "_LATER_ROWS", 0)
+    w = E.Explorer(study)
+    assert w.tray.terms == list(study.terms)
+    assert w.export.code == study.to_code()
+    assert w.wait(60)
+    table = study.candidates()
+    assert [c["term"] for c in w.tray.candidates] == list(table["term"])
+    assert _undated(w.export.audit) == _undated(study.audit())
+    assert w.status == "" and w.message.value == ""
