@@ -618,6 +618,7 @@ class _Aux:
     ref: np.ndarray  # (q,) uncentred sums of squares of the auxiliary columns
     u_ref: float     # uncentred sum of squares of u
     m: int           # number of non-constant regressors
+    skipped: int     # products left out as exact duplicates of the regressors
 
 
 def _aux_cross_products(d: _Data, *, products: bool) -> _Aux | None:
@@ -639,7 +640,18 @@ def _aux_cross_products(d: _Data, *, products: bool) -> _Aux | None:
     mu = X.mean(axis=0)[nc]
     # a slice keeps each chunk a view of the (column-major) design; a gather only if needed
     cols = slice(int(nc[0]), int(nc[-1]) + 1) if np.all(np.diff(nc) == 1) else nc
-    nprod = m * (m + 1) // 2 if products else 0
+    # products to form: for each i, the columns j >= i whose product with i is not known to
+    # repeat other columns exactly
+    plan = []
+    nprod = 0
+    if products:
+        dup = _exact_duplicate_products(X, nc)
+        for i in range(m):
+            js = [j for j in range(i, m) if (i, j) not in dup]
+            if js:
+                sel = slice(js[0], js[-1] + 1) if js[-1] - js[0] + 1 == len(js) else np.array(js)
+                plan.append((i, sel, m + nprod, len(js)))
+                nprod += len(js)
     q = m + nprod
     K = q + 2  # auxiliary columns, u, ones
     rows = max(256, _CHUNK_ELEMS // K)
@@ -661,10 +673,8 @@ def _aux_cross_products(d: _Data, *, products: bool) -> _Aux | None:
             rms[~(rms > 0) | ~np.isfinite(rms)] = 1.0
             scale = np.exp2(-np.round(np.log2(rms)))
         xs *= scale
-        off = m
-        for i in range(m if products else 0):
-            np.multiply(xs[:, i:], xs[:, i:i + 1], out=Zc[:, off:off + m - i])
-            off += m - i
+        for i, sel, off, cnt in plan:
+            np.multiply(xs[:, sel], xs[:, i:i + 1], out=Zc[:, off:off + cnt])
         es = d.e[sl]
         np.multiply(es, es, out=Zc[:, q])
         Zc[:, q] /= sigma2
@@ -680,7 +690,42 @@ def _aux_cross_products(d: _Data, *, products: bool) -> _Aux | None:
     Gc = Gs - n * np.outer(mean_dev, mean_dev)
     raw_sq = np.diag(Gs) + 2 * shift * sums + n * shift**2  # uncentred sums of squares
     return _Aux(G=Gc[:q, :q], c=Gc[:q, q], tss=float(Gc[q, q]), ref=raw_sq[:q],
-                u_ref=float(raw_sq[q]), m=m)
+                u_ref=float(raw_sq[q]), m=m, skipped=m * (m + 1) // 2 - nprod if products else 0)
+
+
+def _exact_duplicate_products(X: np.ndarray, nc: np.ndarray) -> set:
+    """Products of regressors that are exact affine combinations of the regressors themselves.
+
+    A column with two distinct values (an indicator, say) squared is such a combination, and so
+    is the product of two such columns whose value pairs take at most three of their four
+    possible combinations (indicators of levels of one factor, which never both equal 1): a
+    function on three corners of a rectangle is affine.  White's auxiliary regression would
+    drop these columns as duplicates anyway; leaving them out spares their share of the Gram
+    matrix (most of it for a factor with many levels) and does not depend on a tolerance.
+    Returns pairs ``(i, j)``, ``i <= j``, of positions in ``nc``.
+    """
+    n = X.shape[0]
+    ind = {}
+    for pos, col in enumerate(nc):
+        x = X[:, col]
+        if np.unique(x[:64]).size > 2:  # screen on the first rows, confirm on all
+            continue
+        a = x[0]
+        second = x != a
+        if not second.any():
+            continue
+        b = x[int(np.argmax(second))]
+        if np.all(second == (x == b)):
+            ind[pos] = (second, int(np.count_nonzero(second)))
+    dup = {(p, p) for p in ind}
+    keys = sorted(ind)
+    for a_i, p in enumerate(keys):
+        for q in keys[a_i + 1:]:
+            both = int(np.count_nonzero(ind[p][0] & ind[q][0]))
+            n_p, n_q = ind[p][1], ind[q][1]
+            if both == 0 or both == n_p or both == n_q or n_p + n_q - both == n:
+                dup.add((p, q))
+    return dup
 
 
 _NO_REGRESSOR = ("the model has no regressor besides the constant, so there is nothing for the "
@@ -731,7 +776,7 @@ def _white(d: _Data, *, alpha: float) -> _Row:
         return _undefined(name, _EQUAL_U)
     n, m = d.n, aux.m
     ess, r = _gram_quad(aux.G, aux.c, aux.ref)
-    ncols_aux = aux.ref.size
+    ncols_aux = aux.ref.size + aux.skipped
     note = f"{ncols_aux} auxiliary columns from {m} regressor{'s' if m > 1 else ''}"
     if r < ncols_aux:
         note += f", {ncols_aux - r} dropped as duplicates of others"

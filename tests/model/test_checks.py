@@ -264,6 +264,35 @@ def test_agrees_with_statsmodels(seed, p, dummy):
                                rtol=1e-9)
 
 
+def test_white_with_factors_and_two_valued_columns_agrees_with_statsmodels():
+    # a five-level factor (four indicators that never both equal 1), a column taking the values
+    # -1 and 3, an indicator nested in one level (never 1 outside it) and two numeric columns:
+    # many products repeat the regressors exactly and are left out before the Gram matrix; the
+    # statistic and the rank-based degrees of freedom must still be statsmodels' het_white's
+    rng = np.random.default_rng(121)
+    n = 400
+    g = rng.integers(0, 5, n)
+    two = np.where(rng.random(n) < 0.3, 3.0, -1.0)
+    nested = ((g == 2) & (rng.random(n) < 0.5)).astype(float)
+    x1, x2 = rng.standard_normal(n), rng.uniform(0, 4, n)
+    X = np.column_stack([np.ones(n)] + [(g == j).astype(float) for j in range(1, 5)]
+                        + [two, nested, x1, x2])
+    y = X @ rng.standard_normal(X.shape[1]) + rng.standard_normal(n) * (1 + 0.4 * x2 + (g == 3))
+    ls = fit_ols(X, y)
+    r = run_checks(ls, only=["White"])
+    res = _sm_ols(X, y)
+    lm, lmp, _, _ = _quiet(smd.het_white, res.resid, X)
+    k = X.shape[1]
+    aux = X[:, np.triu_indices(k)[0]] * X[:, np.triu_indices(k)[1]]
+    assert r.loc["White", "df"] == str(np.linalg.matrix_rank(aux) - 1)
+    assert r.loc["White", "statistic"] == pytest.approx(lm, rel=1e-8)
+    assert r.loc["White", "pvalue"] == pytest.approx(lmp, rel=1e-7, abs=1e-300)
+    m = k - 1
+    dropped = m * (m + 1) // 2 + m - int(r.loc["White", "df"])
+    assert r.loc["White", "note"].startswith(f"{m * (m + 1) // 2 + m} auxiliary columns from {m} ")
+    assert f"{dropped} dropped as duplicates" in r.loc["White", "note"]
+
+
 def test_time_order_agrees_with_statsmodels_on_sorted_rows():
     X, y = _random_design(11, n=120, p=3)
     rng = np.random.default_rng(12)
