@@ -306,8 +306,9 @@ def _selection(only) -> frozenset:
         extra = ""
         if any(isinstance(nm, str) and nm.startswith("VIF") for nm in bad):
             extra = ' ("VIF" selects every VIF row)'
-        raise ValueError(f"unknown check name{'s' if len(bad) > 1 else ''} "
-                         f"{', '.join(repr(nm) for nm in bad)} in only; valid names: {valid}{extra}")
+        listed = ", ".join(repr(nm) for nm in bad)
+        raise ValueError(f"unknown check name{'s' if len(bad) > 1 else ''} {listed} in only; "
+                         f"valid names: {valid}{extra}")
     return frozenset(names)
 
 

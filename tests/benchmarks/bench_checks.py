@@ -1,10 +1,11 @@
 """Benchmark: ``run_checks`` against statsmodels doing the same tests, in one run.
 
 Run ``python tests/benchmarks/bench_checks.py`` (n = 10^6, p = 12) or with ``--quick``
-(n = 10^5).  Every timing comes from this one process: afterfit's checks, afterfit's own fit
-(``fit_ols``) as a yardstick, and the statsmodels functions that compute the same statistics on
-the same data.  Each statistic is also compared, so the table shows both cost and agreement.
-Data are synthetic (seeded), built only for timing.
+(n = 10^5); ``--threads 1`` caps BLAS threads (steadier numbers on a shared machine).  Every
+timing comes from this one process: afterfit's checks (all of them, and the quick subset a
+redraw asks for), afterfit's own fit (``fit_ols``) as a yardstick, and the statsmodels
+functions that compute the same statistics on the same data.  Each statistic is also compared,
+so the table shows both cost and agreement.  Data are synthetic (seeded), built only for timing.
 
 statsmodels' ``acorr_ljungbox`` computes the autocorrelations by a direct full correlation,
 O(n^2) (about 10^12 operations at n = 10^6), so at full size its row is timed at
@@ -14,19 +15,33 @@ Prints a Markdown table for the README.
 from __future__ import annotations
 
 import argparse
+import os
+import sys
 import time
 import warnings
 
-import numpy as np
-import statsmodels.api as sm
-import statsmodels.stats.diagnostic as smd
-from scipy import stats
-from statsmodels.stats.outliers_influence import variance_inflation_factor
-from statsmodels.stats.stattools import durbin_watson, jarque_bera
 
-from afterfit.model import checks as _checks
-from afterfit.model.checks import run_checks
-from afterfit.model.ols import fit_ols
+def _set_threads(argv):
+    # BLAS reads these when numpy is first imported, so this runs before the imports below
+    for i, a in enumerate(argv):
+        if a == "--threads" and i + 1 < len(argv):
+            for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+                os.environ[var] = argv[i + 1]
+
+
+if __name__ == "__main__":
+    _set_threads(sys.argv)
+
+import numpy as np  # noqa: E402
+import statsmodels.api as sm  # noqa: E402
+import statsmodels.stats.diagnostic as smd  # noqa: E402
+from scipy import stats  # noqa: E402
+from statsmodels.stats.outliers_influence import variance_inflation_factor  # noqa: E402
+from statsmodels.stats.stattools import durbin_watson, jarque_bera  # noqa: E402
+
+from afterfit.model import checks as _checks  # noqa: E402
+from afterfit.model.checks import run_checks  # noqa: E402
+from afterfit.model.ols import fit_ols  # noqa: E402
 
 
 def make_data(n: int, p: int = 12, seed: int = 0):
@@ -72,17 +87,25 @@ def afterfit_parts(ls, lags: int) -> dict:
     return out
 
 
+# the checks a quick redraw asks for (``run_checks(only=QUICK)``)
+QUICK = ("Jarque-Bera", "Breusch-Pagan (Koenker)", "Ljung-Box", "Durbin-Watson")
+
+
 def run(n: int, lb_n: int, *, afterfit_only: bool = False) -> None:
     X, y = make_data(n)
     k = X.shape[1]
     t_fit, ls = timed(lambda: fit_ols(X, y))
     t_checks, r = timed(lambda: run_checks(ls))
+    t_quick, quick = timed(lambda: run_checks(ls, only=QUICK))
+    assert quick.equals(r.loc[quick.index])  # a subset is the full table's rows, exactly
     lags = min(10, n // 5)
     parts = afterfit_parts(ls, lags)
-    print(f"\nn = {n:,}, p = {k}: afterfit run_checks {t_checks:.2f} s, fit_ols {t_fit:.2f} s")
+    threads = os.environ.get("OPENBLAS_NUM_THREADS", "default")
+    print(f"\nn = {n:,}, p = {k} (BLAS threads: {threads}): afterfit run_checks {t_checks:.2f} s, "
+          f"fit_ols {t_fit:.2f} s; only={QUICK}: {t_quick:.3f} s")
     print("| afterfit part | seconds |\n|---|---:|")
     for name, secs in parts.items():
-        print(f"| {name} | {secs:.2f} |")
+        print(f"| {name} | {secs:.3f} |")
     if afterfit_only:
         return
 
@@ -141,6 +164,8 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true", help="n = 10^5 instead of 10^6")
     ap.add_argument("--n", type=int, default=None)
     ap.add_argument("--afterfit-only", action="store_true", help="time afterfit's side only")
+    ap.add_argument("--threads", type=int, default=None,
+                    help="cap BLAS threads for both contenders (applied before numpy loads)")
     ap.add_argument("--lb-n", type=int, default=100_000,
                     help="largest n at which statsmodels' O(n^2) Ljung-Box is timed")
     args = ap.parse_args()
