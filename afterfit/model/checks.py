@@ -107,6 +107,7 @@ class _Data:
     perm: np.ndarray | None  # row indices in time order, None = row order
     R: np.ndarray            # (k, k) with Xw'Xw = R'R
     const_cols: np.ndarray   # positions (in kept order) of columns with one value
+    colmean: np.ndarray      # (k,) unweighted column means of X
     names: tuple             # names of the kept columns
     n: int
     k: int
@@ -347,12 +348,12 @@ def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
     # Constant columns (one value in every row) are found directly; checking that the design
     # can reproduce a constant covers intercepts implied by indicator sets too.
     const_cols = _constant_columns(X)
+    colmean = X.mean(axis=0)
     if has_const and k:
-        ones = np.ones(n) if sw is None else sw
-        s = _colsum_weighted(X, sw)  # X' W 1
+        s = colmean * n if sw is None else _colsum_weighted(X, sw)  # X' W 1
         Rt_s = sla.solve_triangular(R, s, trans="T")
         explained = float(Rt_s @ Rt_s)
-        total = _dot(ones, ones)
+        total = float(n) if sw is None else _dot(sw, sw)
         if not explained >= total * (1 - 1e-8):
             raise ValueError(
                 "has_const=True but the model's columns cannot reproduce a constant; pass "
@@ -364,8 +365,7 @@ def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
     # exact fit: residuals at rounding level relative to the response's own variation
     yw = y if sw is None else y * sw
     if has_const:
-        ones = np.ones(n) if sw is None else sw
-        ref = yw - ones * (_dot(ones, yw) / _dot(ones, ones))
+        ref = yw - yw.mean() if sw is None else yw - sw * (_dot(sw, yw) / _dot(sw, sw))
     else:
         ref = yw
     ref_norm = math.sqrt(_dot(ref, ref))
@@ -380,8 +380,8 @@ def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
     perm, order_note = _order(order, n_all, mask)
     names = tuple(ls.names[i] for i in kept)
     return _Data(
-        X=X, y=y, fitted=fitted, sw=sw, e=e, perm=perm, R=R, const_cols=const_cols, names=names,
-        n=n, k=k, exact=exact, order_note=order_note, base_note="; ".join(notes),
+        X=X, y=y, fitted=fitted, sw=sw, e=e, perm=perm, R=R, const_cols=const_cols,
+        colmean=colmean, names=names, n=n, k=k, exact=exact, order_note=order_note, base_note="; ".join(notes),
     )
 
 
@@ -638,7 +638,7 @@ def _aux_cross_products(d: _Data, *, products: bool) -> _Aux | None:
         return None
     n = d.n
     X = d.X
-    mu = X.mean(axis=0)[nc]
+    mu = d.colmean[nc]
     # a slice keeps each chunk a view of the (column-major) design; a gather only if needed
     cols = slice(int(nc[0]), int(nc[-1]) + 1) if np.all(np.diff(nc) == 1) else nc
     # products to form: for each i, the columns j >= i whose product with i is not known to
@@ -957,7 +957,7 @@ def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
     # data is lost (centring values near zero, such as a power of time, would lose them).
     centre = None
     if d.const_cols.size and n:
-        mean = d.X.mean(axis=0)
+        mean = d.colmean
         lossless = ((d.X.min(axis=0) >= mean / 2) & (mean > 0)) | (
             (d.X.max(axis=0) <= mean / 2) & (mean < 0))
         lossless[d.const_cols] = False
