@@ -184,9 +184,10 @@ def run_checks(
       their squares and cross products.  Regressors are centred and scaled first; with the
       constant included this spans the same space, so the statistic is unchanged but the Gram
       matrix (accumulated in chunks) is far better conditioned.  Columns that duplicate others
-      (a 0/1 indicator squared, say) are dropped by a pivoted Cholesky factorisation, and the
-      degrees of freedom count the columns kept, as statsmodels' rank-based ``df_model``
-      does.  When the model has no intercept, statsmodels' ``het_white`` uses only products
+      are dropped: exact repeats known from the data (a 0/1 indicator squared, the product of
+      two levels of one factor) before the Gram matrix is formed, the rest by a pivoted
+      Cholesky factorisation; the degrees of freedom count the columns kept, as statsmodels'
+      rank-based ``df_model`` does.  When the model has no intercept, statsmodels' ``het_white`` uses only products
       of the given columns; here the auxiliary regression still has a constant and the linear
       terms (the textbook form), so results differ for such models.  The same holds for
       Breusch-Pagan: its auxiliary regression always has a constant (R's ``bptest`` uses the
