@@ -187,7 +187,7 @@ class _Model:
                     and pb["used"] == parent.X.shape[1] and pb["data"].shape[1] >= p):
                 buf, start = pb, parent.X.shape[1]
         if buf is None:
-            buf = {"data": np.empty((n, p + 4), order="F"), "used": 0}
+            buf = {"data": np.empty((n, p + _SPARE), order="F"), "used": 0}
             start = 0
         col = 0
         for tc in tcs:
@@ -308,6 +308,11 @@ class _Model:
         if not cols:
             return np.empty((len(self.rows), 0)), []
         return np.concatenate(cols, axis=1), names
+
+
+# spare columns in a design buffer: an added term's columns (and a candidate's, for its change in
+# cross-validated error) are written there instead of copying the design
+_SPARE = 6
 
 
 @lru_cache(maxsize=4096)
@@ -825,12 +830,12 @@ class Study:
                     failed[c.term] = f"could not be evaluated: {str(exc).splitlines()[0]}"
                     return np.full((len(model.rows), 1), np.nan)
 
-            # a group of candidates' columns at a time, about half the design's width, so the
+            # a group of candidates' columns at a time, about a third of the design's width, so the
             # candidates never hold much more memory than the design itself
             scores = C.score_candidates_in_groups(
                 model.ls, [functools.partial(block_of, c) for c in cands],
                 method=self.multiplicity, alpha=self.alpha,
-                searched=[c.searched for c in cands], max_columns=max(4, model.X.shape[1] // 2))
+                searched=[c.searched for c in cands], max_columns=max(4, model.X.shape[1] // 3))
             table = C.rank_candidates(cands, scores, alpha=self.alpha)
             if failed:
                 table["note"] = [failed.get(t, n) for t, n in zip(table["term"], table["note"])]
