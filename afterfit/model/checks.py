@@ -1114,7 +1114,7 @@ def _vif_values(d: _Data, ls: LeastSquares, *, has_const: bool) -> pd.Series:
             continue
         x = d.X[:, pos]
         if has_const:
-            centre = x.mean() if wts is None else _dot(wts, x) / float(wts.sum())
+            centre = d.colmean[pos] if wts is None else _dot(wts, x) / float(wts.sum())
             dev = x - centre
         else:
             dev = x
