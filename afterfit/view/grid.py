@@ -26,9 +26,10 @@ with warnings.catch_warnings():
     import bqplot as bq
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
-from afterfit.view.sampling import DrawnPoints, choose_points, density
+from afterfit.view.sampling import (DrawnPoints, bin_codes, choose_points,
+                                   density_of_codes)
 
 __all__ = ["ResidualGrid", "PanelData", "PanelView", "Score", "PALETTE", "panel_keys"]
 
@@ -146,23 +147,36 @@ class Score:
         return " · ".join(parts) if parts else f"no {self.label}"
 
 
-def _range(*arrays: np.ndarray, pad: float = 0.05) -> tuple[float, float]:
-    """Finite min/max over the arrays, widened by ``pad`` of the span (a unit span if flat)."""
-    lo, hi = math.inf, -math.inf
-    for a in arrays:
-        a = np.asarray(a, dtype=float)
-        if a.size:
-            ok = a[np.isfinite(a)]
-            if ok.size:
-                lo = min(lo, float(ok.min()))
-                hi = max(hi, float(ok.max()))
-    if not math.isfinite(lo):
+def _extent(a: np.ndarray) -> tuple[float, float] | None:
+    """Finite min and max of ``a`` (None when it has no finite value)."""
+    a = np.asarray(a, dtype=float)
+    if not a.size:
+        return None
+    # two reductions without a copy; only an array holding NaN or inf takes the slow path
+    lo, hi = float(a.min()), float(a.max())
+    if math.isfinite(lo) and math.isfinite(hi):
+        return lo, hi
+    ok = a[np.isfinite(a)]
+    return (float(ok.min()), float(ok.max())) if ok.size else None
+
+
+def _padded(extents, pad: float = 0.05) -> tuple[float, float]:
+    """The union of finite extents widened by ``pad`` of the span (a unit span if flat)."""
+    extents = [e for e in extents if e is not None]
+    if not extents:
         return (-1.0, 1.0)
+    lo = min(e[0] for e in extents)
+    hi = max(e[1] for e in extents)
     span = hi - lo
     if span <= 0 or not math.isfinite(span):
         half = max(abs(lo) * 0.05, 0.5)
         return (lo - half, hi + half)
     return (lo - pad * span, hi + pad * span)
+
+
+def _range(*arrays: np.ndarray, pad: float = 0.05) -> tuple[float, float]:
+    """Finite min/max over the arrays, widened by ``pad`` of the span (a unit span if flat)."""
+    return _padded([_extent(a) for a in arrays], pad=pad)
 
 
 def _float(a: Any) -> np.ndarray:
@@ -179,15 +193,26 @@ def _level_name(v: Any) -> str:
     return str(v)
 
 
-def panel_keys(study: Any) -> list[tuple[str, str]]:
-    """Every panel the Study supports, as ``(key, title)`` in a fixed order."""
+def panel_keys(study: Any, *, cache: "_RowCache | None" = None) -> list[tuple[str, str]]:
+    """Every panel the Study supports, as ``(key, title)`` in a fixed order.
+
+    ``cache`` (the grid's, for the Study's current rows) remembers which variables get a panel,
+    so a refit over the same rows does not look at every column again.
+    """
     out = [("fitted", "Residual by fitted value")]
     for name, s in study.panel_variables().items():
-        if _is_numeric(s):
-            if np.isfinite(_float(s)).any():
-                out.append((f"var:{name}", f"Residual by {name}"))
-        elif s.nunique(dropna=False) <= _MAX_LEVELS:
-            out.append((f"group:{name}", f"Residual by {name}"))
+        kind = cache.kinds.get(name) if cache is not None else None
+        if kind is None:
+            kind = ""
+            if _is_numeric(s):
+                if np.isfinite(_float(s)).any():
+                    kind = "var"
+            elif s.nunique(dropna=False) <= _MAX_LEVELS:
+                kind = "group"
+            if cache is not None:
+                cache.kinds[name] = kind
+        if kind:
+            out.append((f"{kind}:{name}", f"Residual by {name}"))
     out += [("qq", "Quantile check (studentized)"), ("spread", "Spread by fitted value"),
             ("influence", "Influence map (leverage × studentized, Cook contours)")]
     if study.time_values is not None:
@@ -206,12 +231,72 @@ def _numeric_terms(study: Any) -> list[str]:
 # ---------------------------------------------------------------------------------------------
 # reading one Study state
 # ---------------------------------------------------------------------------------------------
+class _Memo:
+    """Ranges and density-cell codes of arrays, found again by the array's identity.
+
+    Entries keep their array alive, so an identity cannot be reused by another array.
+    """
+
+    def __init__(self):
+        self._store: dict = {}
+
+    def get(self, a: np.ndarray, key: tuple, make: Callable[[], Any]) -> Any:
+        hit = self._store.get((id(a),) + key)
+        if hit is not None and hit[0] is a:
+            return hit[1]
+        value = make()
+        self._store[(id(a),) + key] = (a, value)
+        return value
+
+
+class _RowCache:
+    """What a refit does not change while the fitted rows stay the same.
+
+    Per panel key: the x values of variables and model terms (and level codes of groups), with
+    their ranges and density-cell codes; which variables get a panel; the normal plotting
+    positions for a given number of rows.  Only residual-dependent parts are computed anew.
+    """
+
+    def __init__(self, study: Any):
+        self.data = study.data
+        self.rows: pd.Index = study.rows
+        self.kinds: dict = {}
+        self.values: dict = {}
+        self.positions: dict = {}
+        self.memo = _Memo()
+        self._owned: set = set()
+
+    def fits(self, study: Any) -> bool:
+        """Whether ``study``'s data and fitted rows are the ones cached here."""
+        rows = study.rows
+        return study.data is self.data and (rows is self.rows or rows.equals(self.rows))
+
+    def keep(self, key: str, value: Any, x: np.ndarray) -> Any:
+        self.values[key] = value
+        self._owned.add(id(x))
+        return value
+
+    def owns(self, a: np.ndarray) -> bool:
+        return id(a) in self._owned
+
+    def blom(self, m: int) -> np.ndarray:
+        """Normal quantiles at Blom's plotting positions (i - 3/8) / (m + 1/4), i = 1..m
+        (common practice for normal Q-Q plots); ndtri is the normal quantile function."""
+        hit = self.positions.get(m)
+        if hit is None:
+            hit = special.ndtri((np.arange(1, m + 1) - 0.375) / (m + 0.25))
+            self.positions = {m: hit}  # one row count at a time
+        return hit
+
+
 class _Snapshot:
     """Arrays of one Study state, read once per refresh and shared by the panels."""
 
-    def __init__(self, study: Any, *, budget: int, seed: int):
+    def __init__(self, study: Any, *, budget: int, seed: int, cache: _RowCache | None = None):
         self.study = study
         self.rows: pd.Index = study.rows
+        self.cache = cache if cache is not None and cache.fits(study) else _RowCache(study)
+        self.memo = _Memo()
         fit = study.fit
         self.resid = self._on_rows(fit.resid)
         self.fitted = self._on_rows(fit.fitted)
@@ -222,12 +307,40 @@ class _Snapshot:
         self.drawn: DrawnPoints = choose_points(infl, budget=budget, seed=seed)
         self._variables: dict | None = None
         self._scores: pd.DataFrame | None = None
+        self._score_rows: dict | None = None
         self._checks: pd.DataFrame | None = None
 
     def _on_rows(self, s: pd.Series) -> np.ndarray:
         if not s.index.equals(self.rows):
             s = s.reindex(self.rows)
         return s.to_numpy(dtype=float)
+
+    def _memo_for(self, a: np.ndarray) -> _Memo:
+        return self.cache.memo if self.cache.owns(a) else self.memo
+
+    def extent(self, a: np.ndarray) -> tuple[float, float] | None:
+        """Finite min and max of one of this state's arrays (remembered)."""
+        return self._memo_for(a).get(a, ("extent",), lambda: _extent(a))
+
+    def range(self, a: np.ndarray) -> tuple[float, float]:
+        """The padded range a panel shows for ``a``."""
+        return _padded([self.extent(a)])
+
+    def row_offsets(self, a: np.ndarray, value_range: tuple[float, float],
+                    bins: tuple[int, int]) -> np.ndarray:
+        """``codes(a, value_range, bins[1]) * (bins[0] + 1)`` as intp, the row part of a cell
+        index in :func:`afterfit.view.sampling.density_of_codes` (remembered)."""
+        value_range = (float(value_range[0]), float(value_range[1]))
+        nx, ny = bins
+        return self._memo_for(a).get(
+            a, ("offsets", value_range, nx, ny),
+            lambda: np.multiply(self.codes(a, value_range, ny), nx + 1, dtype=np.intp))
+
+    def codes(self, a: np.ndarray, value_range: tuple[float, float], n: int) -> np.ndarray:
+        """Density-cell codes of ``a`` (see :func:`afterfit.view.sampling.bin_codes`)."""
+        value_range = (float(value_range[0]), float(value_range[1]))
+        return self._memo_for(a).get(a, ("codes", value_range, n),
+                                     lambda: bin_codes(a, value_range=value_range, n=n))
 
     @property
     def variables(self) -> dict:
@@ -257,11 +370,15 @@ class _Snapshot:
 
     def score_of(self, name: str) -> Score:
         """The pattern score of the residuals against variable ``name`` (or "fitted")."""
-        t = self.scores
-        if name in t.index:
-            row = t.loc[name]
-            return Score(float(row.get("score", np.nan)), float(row.get("pvalue", np.nan)),
-                         "pattern score (η²)")
+        if self._score_rows is None:
+            t = self.scores
+            nan = np.full(len(t), np.nan)
+            score = _float(t["score"]) if "score" in t else nan
+            pvalue = _float(t["pvalue"]) if "pvalue" in t else nan
+            self._score_rows = dict(zip(t.index, zip(score.tolist(), pvalue.tolist())))
+        hit = self._score_rows.get(name)
+        if hit is not None:
+            return Score(hit[0], hit[1], "pattern score (η²)")
         return Score(np.nan, np.nan, "pattern score")
 
     def check_score(self, name: str) -> Score:
@@ -276,8 +393,11 @@ class _Snapshot:
 
     def influence_score(self) -> Score:
         cooks = self.influence["cooks_d"].to_numpy(dtype=float)
-        flags = [c for c in self.influence.columns if str(c).startswith("flag_")]
-        n_flag = int(self.influence[flags].to_numpy(dtype=bool).any(axis=1).sum()) if flags else 0
+        flagged = np.zeros(len(cooks), dtype=bool)
+        for c in self.influence.columns:
+            if str(c).startswith("flag_"):
+                flagged |= self.influence[c].to_numpy(dtype=bool)
+        n_flag = int(flagged.sum())
         top = float(np.nanmax(cooks)) if np.isfinite(cooks).any() else float("nan")
         # Cook's distance of 1 or more: look at the row first (common practice)
         return Score(top, np.nan, "largest Cook's D", note=f"{n_flag:,} flagged row(s)",
@@ -291,16 +411,20 @@ def _smoother(study: Any, name: str, levels: tuple = ()) -> pd.DataFrame | None:
         return None
     if sm is None or len(sm) == 0 or not {"centre", "mean"} <= set(sm.columns):
         return None
-    sm = sm.copy()
+    # plain arrays: a few small frames per panel, and pandas' per-column overhead adds up
     if levels:
         lookup = {lvl: i for i, lvl in enumerate(levels)}
-        sm["centre"] = [lookup.get(_level_name(c), np.nan) for c in sm["centre"]]
-    for c in ("centre", "mean", "lower", "upper"):
-        if c not in sm:
-            sm[c] = sm["mean"]
-        sm[c] = pd.to_numeric(sm[c], errors="coerce")
-    sm = sm[np.isfinite(sm["centre"]) & np.isfinite(sm["mean"])]
-    return sm.sort_values("centre") if len(sm) else None
+        centre = np.array([lookup.get(_level_name(c), np.nan) for c in sm["centre"]], dtype=float)
+    else:
+        centre = _float(sm["centre"])
+    cols = {"centre": centre}
+    for c in ("mean", "lower", "upper"):
+        cols[c] = _float(sm[c] if c in sm else sm["mean"])
+    keep = np.isfinite(cols["centre"]) & np.isfinite(cols["mean"])
+    if not keep.any():
+        return None
+    order = np.argsort(cols["centre"][keep], kind="stable")
+    return pd.DataFrame({c: v[keep][order] for c, v in cols.items()})
 
 
 def _zero_guide(x_range: tuple[float, float]) -> tuple[np.ndarray, np.ndarray]:
@@ -316,20 +440,29 @@ def build_panel(snap: _Snapshot, key: str, title: str) -> PanelData:
     if key == "fitted":
         x = snap.fitted
         return PanelData(key, title, "scatter", x, resid, "fitted value", "residual", score,
-                         smoother=_smoother(study, "fitted"), guides=(_zero_guide(_range(x)),))
+                         smoother=_smoother(study, "fitted"),
+                         guides=(_zero_guide(snap.range(x)),))
+    cache = snap.cache
     if key.startswith("var:"):
         name = key[4:]
-        x = _float(snap.variables[name])
+        x = cache.values.get(key)
+        if x is None:  # the values of a column do not change while the rows stay the same
+            x = _float(snap.variables[name])
+            cache.keep(key, x, x)
         return PanelData(key, title, "scatter", x, resid, str(name), "residual", score,
-                         smoother=_smoother(study, name), guides=(_zero_guide(_range(x)),))
+                         smoother=_smoother(study, name), guides=(_zero_guide(snap.range(x)),))
     if key.startswith("group:"):
         name = key[6:]
-        s = snap.variables[name]
-        codes, uniques = pd.factorize(s, sort=True, use_na_sentinel=False)
-        levels = tuple(_level_name(u) for u in uniques)
-        # a fixed, even spread inside each level (no random numbers: it never moves)
-        jitter = ((np.arange(len(codes)) * _GOLDEN) % 1.0 - 0.5) * 0.56
-        x = codes.astype(float) + jitter
+        hit = cache.values.get(key)
+        if hit is None:
+            s = snap.variables[name]
+            codes, uniques = pd.factorize(s, sort=True, use_na_sentinel=False)
+            levels = tuple(_level_name(u) for u in uniques)
+            # a fixed, even spread inside each level (no random numbers: it never moves)
+            jitter = ((np.arange(len(codes)) * _GOLDEN) % 1.0 - 0.5) * 0.56
+            x = codes.astype(float) + jitter
+            hit = cache.keep(key, (x, levels), x)
+        x, levels = hit
         return PanelData(key, title, "strip", x, resid, str(name), "residual", score,
                          levels=levels, smoother=_smoother(study, name, levels),
                          guides=((np.array([-0.5, len(levels) - 0.5]), np.zeros(2)),))
@@ -340,12 +473,15 @@ def build_panel(snap: _Snapshot, key: str, title: str) -> PanelData:
         ok = np.isfinite(y)
         m = int(ok.sum())
         if m:
-            # Blom plotting positions (common practice for normal Q-Q plots)
-            ranks = np.empty(m)
-            ranks[np.argsort(y[ok], kind="stable")] = np.arange(1, m + 1)
-            x[ok] = stats.norm.ppf((ranks - 0.375) / (m + 0.25))
+            at = np.flatnonzero(ok) if m < len(y) else None
+            x_ok = np.empty(m)
+            x_ok[_stable_order(y[ok] if at is not None else y)] = cache.blom(m)
+            if at is None:
+                x = x_ok
+            else:
+                x[at] = x_ok
         # the line y = x across the normal quantiles drawn
-        line = np.linspace(*_range(x, pad=0.0), 2)
+        line = np.linspace(*_padded([snap.extent(x)], pad=0.0), 2)
         return PanelData(key, title, "scatter", x, y, "normal quantile",
                          "studentized residual (external)", score, guides=((line, line),))
     if key == "spread":
@@ -376,9 +512,14 @@ def build_panel(snap: _Snapshot, key: str, title: str) -> PanelData:
         if not pr.index.equals(snap.rows):
             pr = pr.reindex(snap.rows)
         x = pr["x"].to_numpy(dtype=float)
+        known = cache.values.get(key)
+        if known is not None and _same_values(known, x):
+            x = known  # the term's column over the same rows: its ranges and codes are kept
+        else:
+            cache.keep(key, x, x)
         y = pr["partial"].to_numpy(dtype=float)
         b = float(study.fit.params.get(term, np.nan))
-        xr = np.linspace(*_range(x, pad=0.0), 2)
+        xr = np.linspace(*_padded([snap.extent(x)], pad=0.0), 2)
         guides = ((xr, b * xr),) if np.isfinite(b) else ()
         smoother = None
         if term in snap.variables and np.isfinite(b):
@@ -391,6 +532,39 @@ def build_panel(snap: _Snapshot, key: str, title: str) -> PanelData:
         return PanelData(key, title, "scatter", x, y, term, "component + residual", score,
                          smoother=smoother, guides=guides)
     raise KeyError(f"no panel called {key!r}")
+
+
+def _stable_order(v: np.ndarray) -> np.ndarray:
+    """``np.argsort(v, kind="stable")`` for finite ``v``, faster when ties are few.
+
+    The default sort is several times faster than the stable one on a million values; ties
+    (rare in studentized residuals) are then put back in row order run by run.
+    """
+    order = np.argsort(v)
+    s = v[order]
+    tied = np.flatnonzero(s[1:] == s[:-1])
+    if tied.size == 0:
+        return order
+    # runs of equal sorted values: s[a] == ... == s[b - 1]
+    gap = np.diff(tied) > 1
+    starts = tied[np.r_[True, gap]]
+    if len(starts) > 2_000:
+        return np.argsort(v, kind="stable")
+    ends = tied[np.r_[gap, True]] + 2
+    for a, b in zip(starts, ends):
+        order[a:b] = np.sort(order[a:b])
+    return order
+
+
+def _same_values(known: np.ndarray, x: np.ndarray) -> bool:
+    """Whether ``x`` holds the values of ``known`` (all of them for small arrays, else a fixed
+    spread of 256 rows and both ends; enough to tell two different columns apart)."""
+    if known.shape != x.shape:
+        return False
+    if len(x) > 4096:
+        at = np.r_[np.linspace(0, len(x) - 1, 256).astype(np.int64)]
+        return bool(np.array_equal(known[at], x[at], equal_nan=True))
+    return bool(np.array_equal(known, x, equal_nan=True))
 
 
 def _cook_guides(h: np.ndarray, r: np.ndarray, p: int) -> tuple:
@@ -417,7 +591,13 @@ class PanelView:
     """The bqplot figure of one panel, its header (subtitle, pin, hide) and its brush.
 
     Widgets are created once per panel key and reused for every refresh, so a refit only sends
-    new arrays (as binary buffers) and fixed scale bounds.
+    new arrays (as binary buffers) and new axis bounds.
+
+    The marks sit on fixed unit scales (``mx``, ``my``: 0 to 1 across the plot area) and get
+    their coordinates already scaled; the axes and the brush use scales in data units (``xs``,
+    ``ys``) that no mark listens to.  A new data range then redraws the two axes only, and each
+    mark is redrawn once, when its own data arrive (a scale shared with the marks would redraw
+    every mark of the panel again for each scale that changes).
     """
 
     def __init__(self, key: str, kind: str, *, on_brush: Callable, on_pin: Callable,
@@ -427,9 +607,13 @@ class PanelView:
         self.data: PanelData | None = None
         self.drawn = np.empty(0, dtype=np.int64)
         self.extra = np.empty(0, dtype=np.int64)
+        self.x_range = (0.0, 1.0)
+        self.y_range = (0.0, 1.0)
         self.xs = bq.LinearScale(min=0.0, max=1.0, allow_padding=False)
         self.ys = bq.LinearScale(min=0.0, max=1.0, allow_padding=False)
-        sc = {"x": self.xs, "y": self.ys}
+        self.mx = bq.LinearScale(min=0.0, max=1.0, allow_padding=False)
+        self.my = bq.LinearScale(min=0.0, max=1.0, allow_padding=False)
+        sc = {"x": self.mx, "y": self.my}
         self.x_axis = bq.Axis(scale=self.xs, label="", grid_color=PALETTE["grid"],
                               color=PALETTE["axis"], label_color=PALETTE["axis"],
                               tick_style=_TICK_STYLE, label_offset="32px", tick_format="~g")
@@ -445,11 +629,7 @@ class PanelView:
         self.band = bq.Lines(x=np.zeros((2, 2)), y=np.zeros((2, 2)), scales=sc, fill="between",
                              colors=[PALETTE["smoother"]], fill_colors=[PALETTE["smoother"]],
                              fill_opacities=[0.14], stroke_width=0, visible=False)
-        if kind == "strip":
-            # per level: a vertical band segment (drawn thick, translucent)
-            self.band.fill = "none"
-            self.band.stroke_width = 7
-            self.band.opacities = [0.22]
+        self._style_band(kind)
         self.guides = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)), scales=sc,
                                colors=[PALETTE["guide"]], stroke_width=1.2, line_style="dashed",
                                visible=False)
@@ -463,15 +643,18 @@ class PanelView:
             self.highlight = None
             marks += [self.dots, self.smooth]
         else:
+            # Without names, bqplot labels each dot "Dot<i>" (hidden) and rewrites every label
+            # on every redraw; one empty name (and dots keyed by position) leaves them empty.
+            quiet = {"names": np.array([""]), "names_unique": False, "display_names": False}
             self.dots = bq.Scatter(
                 x=np.zeros(0), y=np.zeros(0), scales=sc, colors=[PALETTE["dot"]],
                 opacities=[0.7], default_size=16, stroke_width=0,
                 selected_style={"fill": PALETTE["selected"], "opacity": 1.0},
-                unselected_style={"opacity": 0.25},
+                unselected_style={"opacity": 0.25}, **quiet,
             )
             self.highlight = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc,
                                         colors=[PALETTE["selected"]], opacities=[0.85],
-                                        default_size=16, stroke_width=0)
+                                        default_size=16, stroke_width=0, **quiet)
             marks += [self.dots, self.smooth, self.highlight]
         self.brush = None
         if kind != "bars":
@@ -500,119 +683,175 @@ class PanelView:
             min_width="300px"))
         self.box.add_class("afterfit-panel")  # a stable hook for the browser tests
 
+    @property
+    def family(self) -> str:
+        """"bars" or "points": panels of one family can take each other's widgets."""
+        return _family(self.kind)
+
+    def rekey(self, key: str, kind: str) -> None:
+        """Take over another panel of the same family (its widgets are already on the page)."""
+        if _family(kind) != self.family:
+            raise ValueError(f"a {self.kind} panel cannot show a {kind} panel")
+        self.key = key
+        self.data = None
+        self.drawn = np.empty(0, dtype=np.int64)
+        self.extra = np.empty(0, dtype=np.int64)
+        self.clear_brush()
+        if kind != self.kind:
+            self.kind = kind
+            self._style_band(kind)
+
+    def _style_band(self, kind: str) -> None:
+        if kind == "strip":
+            # per level: a vertical band segment (drawn thick, translucent)
+            _set(self.band, "fill", "none")
+            _set(self.band, "stroke_width", 7.0)
+            _set(self.band, "opacities", [0.22])
+        else:
+            _set(self.band, "fill", "between")
+            _set(self.band, "stroke_width", 0.0)
+            _set(self.band, "opacities", [1.0])
+
     # -- data ---------------------------------------------------------------------------------
-    def show(self, data: PanelData, drawn: DrawnPoints) -> None:
-        """Send ``data`` to the page; ``drawn`` chooses which rows become dots."""
+    def to_data(self, axis: str, values) -> np.ndarray:
+        """Mark coordinates (unit scale) of ``axis`` "x" or "y" back in data units."""
+        lo, hi = self.x_range if axis == "x" else self.y_range
+        return lo + np.asarray(values, dtype=float) * (hi - lo)
+
+    def _unit(self, axis: str, values) -> np.ndarray:
+        lo, hi = self.x_range if axis == "x" else self.y_range
+        return (np.asarray(values, dtype=float) - lo) / (hi - lo)
+
+    def show(self, data: PanelData, drawn: DrawnPoints, *, snap: "_Snapshot | None" = None) -> None:
+        """Send ``data`` to the page; ``drawn`` chooses which rows become dots.
+
+        ``snap`` (the state ``data`` was built from) remembers ranges and density-cell codes of
+        arrays that several panels share or that a refit does not change.
+        """
         self.data = data
         x, y = data.x, data.y
-        guide_x = [g[0] for g in data.guides]
-        guide_y = [g[1] for g in data.guides]
+        extent = snap.extent if snap is not None else _extent
         if data.kind == "strip":
             x_range = (-0.5, len(data.levels) - 0.5)
         elif data.kind == "bars":
             x_range = (0.0, float(np.nanmax(x)) + 1.0 if len(x) else 2.0)
         else:
-            x_range = _range(x)
-        band_y = []
+            x_range = _padded([extent(x)])
+        extents = [extent(y)]
         if data.smoother is not None:
-            band_y = [data.smoother["lower"].to_numpy(), data.smoother["upper"].to_numpy()]
-        y_range = _range(y, *band_y, *(np.zeros(1),) if data.kind == "bars" else ())
+            extents += [_extent(data.smoother["lower"].to_numpy(dtype=float)),
+                        _extent(data.smoother["upper"].to_numpy(dtype=float))]
+        if data.kind == "bars":
+            extents.append((0.0, 0.0))
+        self.x_range = (float(x_range[0]), float(x_range[1]))
+        self.y_range = _padded(extents)
         widgets = [self.density, self.band, self.guides, self.smooth, self.dots]
         if self.highlight is not None:
             widgets.append(self.highlight)
         widgets += [self.x_axis, self.y_axis, self.figure, self.xs, self.ys, self.shade_scale]
         with _held(widgets):
-            # scales first in the batch order (held widgets flush last-in first)
-            self.xs.min, self.xs.max = float(x_range[0]), float(x_range[1])
-            self.ys.min, self.ys.max = float(y_range[0]), float(y_range[1])
-            self.figure.title = data.title
+            _set(self.xs, "min", self.x_range[0])
+            _set(self.xs, "max", self.x_range[1])
+            _set(self.ys, "min", self.y_range[0])
+            _set(self.ys, "max", self.y_range[1])
+            _set(self.figure, "title", data.title)
             # long titles get a smaller font rather than being cut at the panel's edge
             size = "13px" if len(data.title) <= 34 else "11px"
             if self.figure.title_style.get("font-size") != size:
                 self.figure.title_style = {**_TITLE_STYLE, "font-size": size}
-            self.x_axis.label = data.x_label
-            self.y_axis.label = data.y_label
+            _set(self.x_axis, "label", data.x_label)
+            _set(self.y_axis, "label", data.y_label)
             if data.kind == "strip":
                 k = len(data.levels)
                 step = max(1, math.ceil(k / _MAX_LEVEL_TICKS))
                 ticks = np.arange(0, k, step, dtype=float)
-                self.x_axis.tick_values = ticks
-                self.x_axis.tick_labels = {str(int(t)): _short(data.levels[int(t)]) for t in ticks}
+                _set(self.x_axis, "tick_values", ticks)
+                _set(self.x_axis, "tick_labels",
+                     {str(int(t)): _short(data.levels[int(t)]) for t in ticks})
             elif data.kind == "bars":
-                self.x_axis.tick_format = "d"
+                _set(self.x_axis, "tick_format", "d")
             else:
                 # about five round ticks: a panel is narrow and long labels would run together
-                self.x_axis.tick_values = _round_ticks(*x_range)
-            self._show_guides(guide_x, guide_y)
+                _set(self.x_axis, "tick_values", _round_ticks(*self.x_range))
+                _set(self.x_axis, "tick_labels", {})
+            self._show_guides(data.guides)
             self._show_smoother(data)
             if data.kind == "bars":
-                self.dots.x = x
-                self.dots.y = np.nan_to_num(y)
+                _set(self.dots, "x", self._unit("x", x))
+                _set(self.dots, "y", self._unit("y", np.nan_to_num(y)))
+                _set(self.dots, "base", float(self._unit("y", 0.0)))
             else:
                 pos = drawn.positions
-                self.drawn = pos
-                ok = np.isfinite(x[pos]) & np.isfinite(y[pos])
+                xp, yp = x[pos], y[pos]
+                ok = np.isfinite(xp) & np.isfinite(yp)
                 self.drawn = pos[ok]
-                with self.dots.hold_sync():
-                    self.dots.selected = None
-                    self.dots.x = x[self.drawn]
-                    self.dots.y = y[self.drawn]
-                self._show_density(data, drawn, x_range, y_range)
+                _set(self.dots, "selected", None)
+                _set(self.dots, "x", self._unit("x", xp[ok]))
+                _set(self.dots, "y", self._unit("y", yp[ok]))
+                self._show_density(data, drawn, snap)
 
-    def _show_guides(self, gx: list, gy: list) -> None:
-        if not gx:
-            self.guides.visible = False
+    def _show_guides(self, guides: tuple) -> None:
+        if not guides:
+            _set(self.guides, "visible", False)
             return
+        gx = [self._unit("x", g[0]) for g in guides]
+        gy = [self._unit("y", g[1]) for g in guides]
         m = max(len(a) for a in gx)
         xs = np.vstack([np.interp(np.linspace(0, 1, m), np.linspace(0, 1, len(a)), a) for a in gx])
         ys = np.vstack([np.interp(np.linspace(0, 1, m), np.linspace(0, 1, len(a)), a) for a in gy])
-        colors = [PALETTE["guide"]] * len(gx)
-        if self.key == "influence":
-            colors = [PALETTE["cook"]] * len(gx)
-        with self.guides.hold_sync():
-            self.guides.x, self.guides.y = xs, ys
-            self.guides.colors = colors
-            self.guides.visible = True
+        colors = [PALETTE["cook" if self.key == "influence" else "guide"]] * len(gx)
+        _set(self.guides, "x", xs)
+        _set(self.guides, "y", ys)
+        _set(self.guides, "colors", colors)
+        _set(self.guides, "visible", True)
 
     def _show_smoother(self, data: PanelData) -> None:
         sm = data.smoother
         if sm is None:
-            self.smooth.visible = False
-            self.band.visible = False
+            _set(self.smooth, "visible", False)
+            _set(self.band, "visible", False)
             return
-        c = sm["centre"].to_numpy(dtype=float)
-        m = sm["mean"].to_numpy(dtype=float)
-        lo = sm["lower"].to_numpy(dtype=float)
-        hi = sm["upper"].to_numpy(dtype=float)
-        with self.smooth.hold_sync(), self.band.hold_sync():
-            if data.kind == "strip":
-                # per level: a short bar at the mean and a vertical band of its interval
-                self.smooth.x = np.column_stack([c - 0.34, c + 0.34])
-                self.smooth.y = np.column_stack([m, m])
-                self.smooth.colors = [PALETTE["smoother"]] * len(c)
-                self.band.x = np.column_stack([c, c])
-                self.band.y = np.column_stack([lo, hi])
-                self.band.colors = [PALETTE["smoother"]] * len(c)
-            else:
-                self.smooth.x = c[None, :]
-                self.smooth.y = m[None, :]
-                self.band.x = np.vstack([c, c])
-                self.band.y = np.vstack([lo, hi])
-            self.smooth.visible = True
-            self.band.visible = bool(np.isfinite(lo).any() and np.isfinite(hi).any())
+        c = self._unit("x", sm["centre"].to_numpy(dtype=float))
+        m = self._unit("y", sm["mean"].to_numpy(dtype=float))
+        lo = self._unit("y", sm["lower"].to_numpy(dtype=float))
+        hi = self._unit("y", sm["upper"].to_numpy(dtype=float))
+        if data.kind == "strip":
+            # per level: a short bar at the mean and a vertical band of its interval
+            half = 0.34 / (self.x_range[1] - self.x_range[0])
+            _set(self.smooth, "x", np.column_stack([c - half, c + half]))
+            _set(self.smooth, "y", np.column_stack([m, m]))
+            _set(self.smooth, "colors", [PALETTE["smoother"]] * len(c))
+            _set(self.band, "x", np.column_stack([c, c]))
+            _set(self.band, "y", np.column_stack([lo, hi]))
+            _set(self.band, "colors", [PALETTE["smoother"]] * len(c))
+        else:
+            _set(self.smooth, "x", c[None, :])
+            _set(self.smooth, "y", m[None, :])
+            _set(self.band, "x", np.vstack([c, c]))
+            _set(self.band, "y", np.vstack([lo, hi]))
+        _set(self.smooth, "visible", True)
+        _set(self.band, "visible", bool(np.isfinite(lo).any() and np.isfinite(hi).any()))
 
-    def _show_density(self, data: PanelData, drawn: DrawnPoints, xr, yr) -> None:
+    def _show_density(self, data: PanelData, drawn: DrawnPoints, snap) -> None:
         if drawn.complete:
-            self.density.visible = False
+            _set(self.density, "visible", False)
             return
-        d = density(data.x, data.y, x_range=xr, y_range=yr,
-                    bins=(60 if data.kind != "strip" else max(2, 8 * len(data.levels)), 40))
-        with self.density.hold_sync():
-            self.shade_scale.max = float(max(math.sqrt(d.max_count), 1.0))
-            self.density.color = d.shade
-            self.density.x = d.x_centres
-            self.density.y = d.y_centres
-            self.density.visible = True
+        bins = (60 if data.kind != "strip" else max(2, 8 * len(data.levels)), 40)
+        xr, yr = self.x_range, self.y_range
+        if snap is not None:
+            ix, iy = snap.codes(data.x, xr, bins[0]), snap.codes(data.y, yr, bins[1])
+            # most panels share the residuals (and their range): their row offsets once
+            iy = snap.row_offsets(data.y, yr, bins)
+        else:
+            ix = bin_codes(data.x, value_range=xr, n=bins[0])
+            iy = bin_codes(data.y, value_range=yr, n=bins[1])
+        # counted in data units, placed on the marks' unit scales
+        d = density_of_codes(ix, iy, x_range=(0.0, 1.0), y_range=(0.0, 1.0), bins=bins)
+        _set(self.shade_scale, "max", float(max(math.sqrt(d.max_count), 1.0)))
+        _set(self.density, "color", d.shade)
+        _set(self.density, "x", d.x_centres)
+        _set(self.density, "y", d.y_centres)
+        _set(self.density, "visible", True)
 
     # -- selection ----------------------------------------------------------------------------
     def brushed_mask(self) -> np.ndarray | None:
@@ -634,9 +873,9 @@ class PanelView:
             return
         if mask is None:
             with self.dots.hold_sync(), self.highlight.hold_sync():
-                self.dots.selected = None
-                self.highlight.x = np.zeros(0)
-                self.highlight.y = np.zeros(0)
+                _set(self.dots, "selected", None)
+                _set(self.highlight, "x", np.zeros(0))
+                _set(self.highlight, "y", np.zeros(0))
             self.extra = np.empty(0, dtype=np.int64)
             return
         inside = np.flatnonzero(mask[self.drawn])
@@ -649,9 +888,9 @@ class PanelView:
             others = np.sort(rng.choice(others, size=_HIGHLIGHT_CAP, replace=False))
         self.extra = others
         with self.dots.hold_sync(), self.highlight.hold_sync():
-            self.dots.selected = inside.astype(np.int32)
-            self.highlight.x = x[others]
-            self.highlight.y = y[others]
+            _set(self.dots, "selected", inside.astype(np.int32))
+            _set(self.highlight, "x", self._unit("x", x[others]))
+            _set(self.highlight, "y", self._unit("y", y[others]))
 
     def clear_brush(self) -> None:
         """Remove this panel's brush rectangle (another panel holds the selection now)."""
@@ -660,6 +899,22 @@ class PanelView:
             with b.hold_sync():
                 b.selected_x = None
                 b.selected_y = None
+
+
+def _set(widget: Any, name: str, value: Any) -> None:
+    """Set a trait only when the value differs, so nothing unchanged is sent or redrawn.
+
+    (traitlets cannot compare arrays and would send every array again.)
+    """
+    old = getattr(widget, name)
+    if isinstance(value, np.ndarray) or isinstance(old, np.ndarray):
+        if (isinstance(value, np.ndarray) and isinstance(old, np.ndarray)
+                and value.shape == old.shape and value.dtype == old.dtype
+                and np.array_equal(value, old, equal_nan=value.dtype.kind == "f")):
+            return
+    elif old is value or (type(old) is type(value) and old == value):
+        return
+    setattr(widget, name, value)
 
 
 class _held:
@@ -693,6 +948,10 @@ def _round_ticks(lo: float, hi: float, n: int = 5) -> np.ndarray:
     ticks = np.arange(first, hi + step * 1e-9, step)
     # drop the rounding noise of the multiplication (0.30000000000000004 -> 0.3)
     return np.round(ticks, max(0, -math.floor(math.log10(step)) + 2))
+
+
+def _family(kind: str) -> str:
+    return "bars" if kind == "bars" else "points"
 
 
 def _short(text: str, k: int = 16) -> str:
@@ -748,6 +1007,7 @@ class ResidualGrid(W.VBox):
         self._layout = _Layout()
         self._snap: _Snapshot | None = None
         self._built: dict[str, PanelData] = {}
+        self._views: list[PanelView] = []  # on the page, in the order first shown
         self.problems: dict[str, str] = {}
         self._mask: np.ndarray | None = None
         self._selection = pd.Index([])
@@ -800,11 +1060,13 @@ class ResidualGrid(W.VBox):
     # -- refresh ------------------------------------------------------------------------------
     def refresh(self) -> None:
         """Redraw every visible panel from the Study's current fit and re-apply the selection."""
-        snap = _Snapshot(self._study, budget=self.budget, seed=self.seed)
+        old = self._snap
+        snap = _Snapshot(self._study, budget=self.budget, seed=self.seed,
+                         cache=old.cache if old is not None else None)
         self._snap = snap
         self._built = {}
         self.problems = {}
-        plan = panel_keys(self._study)
+        plan = panel_keys(self._study, cache=snap.cache)
         self.titles = dict(plan)
         self.scores = {key: _score_for(snap, key) for key, _title in plan}
         known = set(self.titles)
@@ -831,7 +1093,6 @@ class ResidualGrid(W.VBox):
         snap = self._snap
         visible = [k for k in self.ranked() if k not in self._layout.hidden]
         shown = visible[: self.max_panels]
-        boxes = []
         order = []
         for key in shown:
             data = self._built.get(key)
@@ -843,20 +1104,29 @@ class ResidualGrid(W.VBox):
                     continue
                 self._built[key] = data
             view = self.panels.get(key)
-            if view is None or view.kind != data.kind:
-                view = PanelView(key, data.kind, on_brush=self._brushed, on_pin=self.pin,
-                                 on_hide=self.hide_panel)
-                self.panels[key] = view
+            if view is None or view.family != _family(data.kind):
+                view = self._view_for(key, data.kind, keep=shown)
             if view.pin.value != (key in self._layout.pinned):
                 view.pin.value = key in self._layout.pinned
             if data.subtitle != view.subtitle.value:
                 view.subtitle.value = data.subtitle
             if view.data is not data:  # pin, hide and "more" move panels without resending
-                view.show(data, snap.drawn)
-            boxes.append(view.box)
+                view.show(data, snap.drawn, snap=snap)
             order.append(key)
         self.order = order
-        self.cells.children = boxes
+        # The page keeps one view per panel box, in the order the boxes were first shown: the
+        # CSS order places them, and panels off the grid are only hidden.  Reordering the
+        # children instead would make the page build every moved figure anew.
+        place = {key: i for i, key in enumerate(order)}
+        for view in self._views:
+            if view.key in place and self.panels.get(view.key) is view:
+                _set(view.box.layout, "order", str(place[view.key]))
+                _set(view.box.layout, "display", None)
+            else:
+                _set(view.box.layout, "display", "none")
+        boxes = [v.box for v in self._views]
+        if list(self.cells.children) != boxes:
+            self.cells.children = boxes
         n_more = len(visible) - len(shown)
         step = min(n_more, 6)
         self.more.description = (f"Show {step} more panel{'s' if step != 1 else ''}"
@@ -876,6 +1146,26 @@ class ResidualGrid(W.VBox):
         hidden = self._layout.hidden
         self.hidden_pick.options = [(self.titles[k], k) for k in hidden]
         self.hidden_bar.layout.display = None if hidden else "none"
+
+    def _view_for(self, key: str, kind: str, *, keep: list) -> PanelView:
+        """A view for panel ``key``: the widgets of a panel off the grid if there are some (its
+        figure is on the page already, and a new figure costs the page far more than new data);
+        else new widgets."""
+        if key in self.panels:  # its widgets are of the other family: they wait for another
+            del self.panels[key]
+        spare = next((v for v in self._views if v.family == _family(kind)
+                      and (self.panels.get(v.key) is not v or v.key not in keep)), None)
+        if spare is not None:
+            if self.panels.get(spare.key) is spare:
+                del self.panels[spare.key]
+            spare.rekey(key, kind)
+            view = spare
+        else:
+            view = PanelView(key, kind, on_brush=self._brushed, on_pin=self.pin,
+                             on_hide=self.hide_panel)
+            self._views.append(view)
+        self.panels[key] = view
+        return view
 
     def _show_more(self) -> None:
         self.max_panels += 6

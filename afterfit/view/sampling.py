@@ -15,7 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-__all__ = ["DrawnPoints", "Density", "choose_points", "density"]
+__all__ = ["DrawnPoints", "Density", "choose_points", "density", "bin_codes",
+           "density_of_codes"]
 
 
 @dataclass(frozen=True)
@@ -60,12 +61,15 @@ class Density:
 
 def _top(values: np.ndarray, k: int) -> np.ndarray:
     """Positions of the ``k`` largest values, largest first (NaN counts as largest)."""
-    v = np.where(np.isnan(values), np.inf, values)
-    k = min(k, len(v))
+    n = len(values)
+    k = min(k, n)
     if k <= 0:
         return np.empty(0, dtype=np.int64)
-    part = np.argpartition(-v, k - 1)[:k]
-    return part[np.argsort(-v[part], kind="stable")].astype(np.int64)
+    # partition sorts NaN last, as the largest values, so no copy of the column is needed
+    part = np.argpartition(values, n - k)[n - k:] if k < n else np.arange(n)
+    v = values[part]
+    v = np.where(np.isnan(v), np.inf, v)
+    return part[np.argsort(-v, kind="stable")].astype(np.int64)
 
 
 def choose_points(
@@ -105,7 +109,11 @@ def choose_points(
         cooks = np.zeros(n)
     flag_cols = [c for c in influence.columns if str(c).startswith("flag_")]
     if flag_cols:
-        flagged = np.flatnonzero(influence[flag_cols].to_numpy(dtype=bool).any(axis=1))
+        # column by column: no (rows x flags) copy of the frame
+        any_flag = np.zeros(n, dtype=bool)
+        for c in flag_cols:
+            any_flag |= influence[c].to_numpy(dtype=bool)
+        flagged = np.flatnonzero(any_flag)
         # many rows can carry a flag at large n: keep the most influential of them
         order = _top(cooks[flagged], n_keep)
         rankings.append(flagged[order].astype(np.int64))
@@ -133,6 +141,53 @@ def choose_points(
     return DrawnPoints(positions, n, len(kept))
 
 
+def bin_codes(values: np.ndarray, *, value_range: tuple[float, float], n: int) -> np.ndarray:
+    """The cell (``0 .. n - 1``) of each value on ``n`` equal cells spanning ``value_range``.
+
+    Values outside the range are clipped into the edge cells; NaN and infinite values get the
+    code ``n`` (no cell).  The codes are int16 (a density grid has far fewer than 32,767 cells
+    per side), so a panel can keep those of a variable from one refit to the next cheaply.
+    """
+    if not 2 <= n < 32767:
+        raise ValueError(f"a density grid side needs 2 to 32,766 cells, got {n!r}")
+    lo, hi = map(float, value_range)
+    if not hi > lo:
+        raise ValueError(f"empty range for the density grid: {value_range!r}")
+    v = np.asarray(values, dtype=float)
+    t = np.subtract(v, lo)
+    t *= n / (hi - lo)
+    np.clip(t, 0, n - 1, out=t)
+    finite = np.isfinite(v)
+    if not finite.all():
+        t[~finite] = n
+    return t.astype(np.int16)
+
+
+def density_of_codes(
+    ix: np.ndarray, iy: np.ndarray, *, x_range: tuple[float, float], y_range: tuple[float, float],
+    bins: tuple[int, int],
+) -> Density:
+    """Count rows per cell from their x and y cell codes (see :func:`bin_codes`).
+
+    ``iy`` may also be given as intp row offsets, ``iy * (nx + 1)``, which a caller can keep for
+    several panels that share their y values.
+    """
+    nx, ny = bins
+    x0, x1 = map(float, x_range)
+    y0, y1 = map(float, y_range)
+    # one spare column and row collect the rows without a cell (code n); they are dropped
+    if iy.dtype == np.intp:
+        cell = iy + ix
+    else:
+        cell = np.multiply(iy, nx + 1, dtype=np.intp)
+        cell += ix
+    counts = np.bincount(cell, minlength=(nx + 1) * (ny + 1))
+    counts = counts[: (nx + 1) * (ny + 1)].reshape(ny + 1, nx + 1)[:ny, :nx]
+    xs = x0 + (np.arange(nx) + 0.5) * (x1 - x0) / nx
+    ys = y0 + (np.arange(ny) + 0.5) * (y1 - y0) / ny
+    return Density(xs, ys, np.sqrt(counts).astype(np.float32), int(counts.max(initial=0)))
+
+
 def density(
     x: np.ndarray, y: np.ndarray, *, x_range: tuple[float, float], y_range: tuple[float, float],
     bins: tuple[int, int] = (60, 40),
@@ -149,13 +204,6 @@ def density(
     y0, y1 = map(float, y_range)
     if not (x1 > x0 and y1 > y0):
         raise ValueError(f"empty range for the density grid: x {x_range!r}, y {y_range!r}")
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    ok = np.isfinite(x) & np.isfinite(y)
-    x, y = x[ok], y[ok]
-    ix = np.clip(((x - x0) * (nx / (x1 - x0))).astype(np.int64), 0, nx - 1)
-    iy = np.clip(((y - y0) * (ny / (y1 - y0))).astype(np.int64), 0, ny - 1)
-    counts = np.bincount(iy * nx + ix, minlength=nx * ny).reshape(ny, nx)
-    xs = x0 + (np.arange(nx) + 0.5) * (x1 - x0) / nx
-    ys = y0 + (np.arange(ny) + 0.5) * (y1 - y0) / ny
-    return Density(xs, ys, np.sqrt(counts).astype(np.float32), int(counts.max(initial=0)))
+    ix = bin_codes(x, value_range=(x0, x1), n=nx)
+    iy = bin_codes(y, value_range=(y0, y1), n=ny)
+    return density_of_codes(ix, iy, x_range=(x0, x1), y_range=(y0, y1), bins=(nx, ny))

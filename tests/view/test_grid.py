@@ -63,7 +63,8 @@ def test_every_question_has_a_panel(wire, study):
     fitted = grid.panels["fitted"]
     assert fitted.smooth.visible and fitted.band.visible and fitted.guides.visible
     sm = study.binned_means("fitted")
-    np.testing.assert_allclose(np.ravel(fitted.smooth.y), sm["mean"])  # the Study's numbers
+    # the Study's numbers (marks get unit-scale coordinates; to_data reads them back)
+    np.testing.assert_allclose(fitted.to_data("y", np.ravel(fitted.smooth.y)), sm["mean"])
 
 
 def test_memory_panel_only_with_time(wire, study):
@@ -76,7 +77,9 @@ def test_memory_panel_only_with_time(wire, study):
     grid = ResidualGrid(timed, max_panels=50)
     view = grid.panels["memory"]
     assert view.figure.title == "Residual memory (autocorrelation by lag)"
-    np.testing.assert_allclose(view.dots.y, timed.acf()["acf"].to_numpy())
+    np.testing.assert_allclose(view.to_data("y", view.dots.y), timed.acf()["acf"].to_numpy(),
+                               atol=1e-12)
+    assert view.to_data("y", view.dots.base) == pytest.approx(0.0, abs=1e-12)  # bars start at 0
     assert view.brush is None  # bars are lags, not rows: nothing to brush
 
 
@@ -111,14 +114,14 @@ def test_pin_and_hide_from_the_page(wire, study):
     last = grid.order[-1]
     wire.from_page(grid.panels[last].pin, state={"value": True})
     assert grid.order[0] == last and grid.pinned == [last]
-    assert grid.cells.children[0] is grid.panels[last].box
-    # the cells' order reached the page
-    ids = wire.state(grid.cells)["children"]
-    assert ids[0] == "IPY_MODEL_" + grid.panels[last].box.model_id
+    # the page places the panels by CSS order (the boxes stay where they are in the DOM)
+    for place, key in enumerate(grid.order):
+        assert wire.state(grid.panels[key].box.layout)["order"] == str(place)
     # hide: off the grid, listed for restoring
     victim = grid.order[1]
     grid.panels[victim].hide.click()
     assert victim not in grid.order and grid.hidden == [victim]
+    assert wire.state(grid.panels[victim].box.layout)["display"] == "none"
     assert grid.hidden_pick.options == ((grid.titles[victim], victim),)
     assert grid.hidden_bar.layout.display is None
     # pins and hidden panels survive a refit
@@ -346,7 +349,9 @@ def test_moving_panels_resends_nothing_but_the_order(wire, study, monkeypatch):
     for key in grid.order:
         for m in wire.log(grid.panels[key].dots):
             assert "x" not in m.data.get("state", {})  # no coordinates sent again
-    assert wire.updates(grid.cells)  # only the order of the cells changed
+    # only the panels' places changed: no figure is rebuilt on the page
+    assert not wire.updates(grid.cells)
+    assert wire.updates(grid.panels[last].box.layout)
 
 
 def test_a_panel_the_study_cannot_give_is_reported(wire, study, monkeypatch):
