@@ -25,6 +25,7 @@ from scipy import stats
 from afterfit.model import terms as T
 from afterfit.model.design import DesignCache, design_for, working_frame
 from afterfit.model.ols import LeastSquares, fit_ols
+from afterfit.model.threads import single_blas
 
 __all__ = ["Study", "Fit", "Step", "State"]
 
@@ -117,6 +118,7 @@ class Step:
 class _Model:
     """Everything computed for one State; cached properties fill in on first use."""
 
+    @single_blas
     def __init__(self, study: "Study", state: State, cache: DesignCache, avail: np.ndarray):
         self.study = study
         self.state = state
@@ -245,6 +247,7 @@ class _Model:
         )
 
     @cached_property
+    @single_blas
     def influence(self) -> pd.DataFrame:
         from afterfit.model.influence import influence_frame
 
@@ -254,6 +257,7 @@ class _Model:
     def checks(self) -> pd.DataFrame:
         return self.run_checks(None)
 
+    @single_blas
     def run_checks(self, only) -> pd.DataFrame:
         from afterfit.model.checks import run_checks
 
@@ -265,6 +269,7 @@ class _Model:
         return run_checks(self.ls, has_const=self.state.intercept, order=order, only=only)
 
     @cached_property
+    @single_blas
     def cv(self):
         from afterfit.model.crossval import cross_validate
 
@@ -796,6 +801,7 @@ class Study:
         return self
 
     # -- candidates -----------------------------------------------------------------------------
+    @single_blas
     def candidates(self) -> pd.DataFrame:
         """Candidate terms for the current model, ranked stated, evident, speculative."""
         from afterfit.model import candidates as C
@@ -922,6 +928,7 @@ class Study:
         return self._for_rows(model, ("bins", name, bins),
                               lambda: bin_values(pv[name], bins=bins, name=name))
 
+    @single_blas
     def _profiles(self, bins: int = 10) -> tuple:
         """Pattern scores and smoothers of every panel variable, cached per model state."""
         from afterfit.model.candidates import bin_values, residual_profiles
