@@ -55,10 +55,11 @@ CHECK_NAMES = ("RESET", "Breusch-Pagan (Koenker)", "Breusch-Pagan (original)", "
 
 # Rows per chunk for the passes over the data.
 _CHUNK = 16384
-# Entries per chunk of the Breusch-Pagan and White auxiliary blocks (2 MB): small enough to stay
-# in cache between forming the columns and their product, large enough that the per-chunk
-# Python overhead is small (about 2,000 rows x 120 columns for 14 regressors).
-_CHUNK_ELEMS = 262_144
+# Entries per chunk of the Breusch-Pagan and White auxiliary blocks (8 MB, about 9,000 rows x 115
+# columns for 14 regressors; at most _CHUNK rows).  Forming the columns costs about the same
+# from 2,000 to 36,000 rows; fewer, larger matrix products suffer less on a busy machine when
+# OpenBLAS runs them on several threads (each product waits for its slowest thread).
+_CHUNK_ELEMS = 1 << 20
 # A column is treated as a duplicate of the others (or as a constant) when the part of it the
 # others do not explain is below this fraction of its size, in squared (Gram) terms: about
 # 3e-5 in norm terms.  Exactly dependent columns such as a 0/1 indicator squared sit at rounding
@@ -672,7 +673,7 @@ def _aux_cross_products(d: _Data, *, products: bool) -> _Aux | None:
                 nprod += len(js)
     q = m + nprod
     K = q + 2  # auxiliary columns, u, ones
-    rows = max(256, _CHUNK_ELEMS // K)
+    rows = min(_CHUNK, max(256, _CHUNK_ELEMS // K))
     sigma2 = _dot(d.e, d.e) / n  # ML variance: the original Breusch-Pagan scale
     G = np.zeros((K, K))
     # column-major like the design: every column operation below runs on contiguous memory
@@ -1005,37 +1006,54 @@ def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
     out = np.empty(n - start)
     s = start
     ask = m
+    # Every product in this loop is small enough that OpenBLAS keeps it on one thread: on a
+    # busy machine a threaded call, and the helper thread spinning after it, can cost
+    # milliseconds where the work takes microseconds.
     while s < n:
-        b = sla.solve_triangular(R, z, check_finite=False)
+        # np.linalg.inv (LU, no row exchanges for a triangular matrix) rather than a triangular
+        # solve, which OpenBLAS threads even for 15 x 15
+        Rinv = np.linalg.inv(R)
+        b = Rinv @ z
         Xb, yb = rows(s, min(n, s + ask))
-        # R^-1 explicitly, then a product: as accurate here as a triangular solve per row (the
-        # block is chosen so that nothing below is ill-conditioned) and several times cheaper
-        V = Xb @ sla.solve_triangular(R, eye, check_finite=False)
+        V = _stacked_product(Xb, Rinv, m)  # Xb R^-1
         q = np.einsum("ij,ij->i", V, V)
         size = min(Xb.shape[0], max(1, int(np.searchsorted(np.cumsum(q), _HC_TAU, side="right"))))
         Xb, yb, V = Xb[:size], yb[:size], V[:size]
-        r = yb - Xb @ b  # prediction errors from the fit to the rows before the block
+        # prediction errors from the fit to the rows before the block
+        r = yb - np.einsum("ij,j->i", Xb, b)
         # a power of two brings r near 1 (exact): the bordered matrix holds its squares
         big = float(np.max(np.abs(r)))
         rs = math.ldexp(1.0, -math.frexp(big)[1]) if 0 < big < math.inf else 1.0
         r = r * rs
         if size == 1:
             out[s - start] = r[0] / math.sqrt(1.0 + q[0]) / rs
+            info, cross = eye + np.outer(V[0], V[0]), V[0] * r[0]
         else:
-            out[s - start:s - start + size] = _inner_recursive(V, r, B) / rs
+            w, info, cross = _inner_recursive(V, r, B)
+            out[s - start:s - start + size] = w / rs
         # Fold the block into the fit.  [R z; Xb yb] = [I 0; V r] [R z; 0 1], and the QR
-        # factor of [I 0; V r] comes from the Cholesky factor C of I + V'V (condition number
-        # below 1 + _HC_TAU, so this is as accurate as a Householder update): R <- C'R,
-        # z <- C'z + C^-1 V'r.
-        C = np.linalg.cholesky(eye + V.T @ V)
-        z = C.T @ z + sla.solve_triangular(C, V.T @ r, lower=True, check_finite=False) / rs
+        # factor of [I 0; V r] comes from the Cholesky factor C of info = I + V'V (condition
+        # number below 1 + _HC_TAU, so this is as accurate as a Householder update):
+        # R <- C'R, z <- C'z + C^-1 V'r.
+        C = np.linalg.cholesky(info)
+        z = C.T @ z + np.linalg.solve(C, cross) / rs
         R = C.T @ R
         s += size
         ask = min(_HC_OUTER, max(m, 2 * size))
     return out, start
 
 
-def _inner_recursive(V: np.ndarray, r: np.ndarray, B: np.ndarray) -> np.ndarray:
+def _stacked_product(A: np.ndarray, M: np.ndarray, rows: int) -> np.ndarray:
+    """``A @ M`` as a stack of products of ``rows`` rows each (each small enough for one thread)."""
+    c = A.shape[0]
+    J = -(-c // rows)
+    P = np.zeros((J * rows, A.shape[1]))
+    P[:c] = A
+    return np.matmul(P.reshape(J, rows, -1), M).reshape(J * rows, -1)[:c]
+
+
+def _inner_recursive(V: np.ndarray, r: np.ndarray,
+                     B: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Recursive residuals of rows ``V`` (whitened) with prediction errors ``r`` (see below).
 
     The prior is the identity information with zero cross products.  For an inner block with
@@ -1054,6 +1072,7 @@ def _inner_recursive(V: np.ndarray, r: np.ndarray, B: np.ndarray) -> np.ndarray:
     has to keep the matrix positive definite: ``2 (h'h + e'e) + 1`` does, since ``a'A^-1 a``
     plus the squared recursive residuals is at most ``h'G^-1 h + e'e``.  ``B`` is the
     buffer for the bordered matrices, its identity blocks already set; the rest is overwritten.
+    Returns the recursive residuals, ``I + V'V`` and ``V'r``.
     """
     size, k = V.shape
     m = _HC_BLOCK
@@ -1083,8 +1102,10 @@ def _inner_recursive(V: np.ndarray, r: np.ndarray, B: np.ndarray) -> np.ndarray:
     B[:, k:k + m, -1] = ef
     B[:, -1, -1] = 2.0 * (np.einsum("jk,jk->j", h_before, h_before)
                           + np.einsum("ji,ji->j", es, es)) + 1.0
+    # LAPACK factorises each matrix of the stack on one thread (OpenBLAS threads its Cholesky
+    # factorisation only from 64 columns: keep k + _HC_BLOCK + 1 below that for k <= 30)
     L = np.linalg.cholesky(B)
-    return L[:, -1, k:k + m][:, ::-1].reshape(-1)[:size]
+    return L[:, -1, k:k + m][:, ::-1].reshape(-1)[:size], A[-1], a[-1]
 
 
 def _full_rank_start(rows, n: int, k: int) -> int | None:
