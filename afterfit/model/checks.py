@@ -56,7 +56,7 @@ CHECK_NAMES = ("RESET", "Breusch-Pagan (Koenker)", "Breusch-Pagan (original)", "
 # Rows per chunk for the passes over the data.
 _CHUNK = 16384
 # Entries per chunk of the Breusch-Pagan and White auxiliary blocks (8 MB, about 9,000 rows x 115
-# columns for 14 regressors; at most _CHUNK rows).  Forming the columns costs about the same
+# columns for White with 14 regressors; at most _CHUNK rows).  Forming the columns costs about the same
 # from 2,000 to 36,000 rows; fewer, larger matrix products suffer less on a busy machine when
 # OpenBLAS runs them on several threads (each product waits for its slowest thread).
 _CHUNK_ELEMS = 1 << 20
@@ -353,7 +353,7 @@ def _prepare(ls: LeastSquares, *, has_const: bool, order) -> _Data:
     colmean = X.mean(axis=0)
     if has_const and k:
         s = colmean * n if sw is None else _colsum_weighted(X, sw)  # X' W 1
-        Rt_s = sla.solve_triangular(R, s, trans="T")
+        Rt_s = np.linalg.solve(R.T, s)  # not a triangular solve: see _recursive_residuals
         explained = float(Rt_s @ Rt_s)
         total = float(n) if sw is None else _dot(sw, sw)
         if not explained >= total * (1 - 1e-8):
@@ -481,7 +481,7 @@ def _gram_quad(G: np.ndarray, c: np.ndarray, ref: np.ndarray) -> tuple[float, in
         raise RuntimeError(f"pivoted Cholesky failed (info={info})")
     sel = piv[:rank] - 1
     U11 = np.triu(U[:rank, :rank])
-    z = sla.solve_triangular(U11, cs[sel], trans="T", check_finite=False)
+    z = np.linalg.solve(U11.T, cs[sel])  # not a triangular solve: see _recursive_residuals
     return float(z @ z), int(rank)
 
 
@@ -1010,8 +1010,8 @@ def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
     # busy machine a threaded call, and the helper thread spinning after it, can cost
     # milliseconds where the work takes microseconds.
     while s < n:
-        # np.linalg.inv (LU, no row exchanges for a triangular matrix) rather than a triangular
-        # solve, which OpenBLAS threads even for 15 x 15
+        # np.linalg.inv and solve (LU; no row exchanges for an upper triangular matrix) rather
+        # than triangular solves, which OpenBLAS threads even for 15 x 15
         Rinv = np.linalg.inv(R)
         b = Rinv @ z
         Xb, yb = rows(s, min(n, s + ask))
