@@ -966,7 +966,8 @@ def _recursive_residuals(d: _Data) -> tuple[np.ndarray | None, int]:
     block (about ``n / _HC_OUTER`` times on ordinary data).  ``R`` is then updated through the
     whitened information matrix, which the bound keeps as accurate as a Householder update (on
     a degree-5 polynomial in time, the residuals agree with a row-by-row Givens update in
-    80-bit arithmetic to 3e-13 of their size; without the bound the first ones lost 9 digits).
+    80-bit arithmetic to 4e-13 of their typical size; without the bound the first ones were off
+    by 2e-3).
     """
     n, k = d.n, d.k
     perm, sw = d.perm, d.sw
