@@ -1,7 +1,7 @@
 """Residual grid: one bqplot figure per question about what the model left over.
 
 Each panel is an SVG ``Scatter`` of at most ``budget`` dots (rows with extreme residuals or high
-influence are always among them) over a ``HeatMap`` density image of every fitted row, a smoother
+influence are always among them) over a density image (a small PNG) of every fitted row, a smoother
 (binned residual means with a band, from the Study) and reference lines.  Panels are ranked by the
 Study's pattern score, worst first; the analyst can pin a panel to the top or hide it.
 
@@ -14,7 +14,9 @@ density cell, plotting positions of the Q-Q panel, the Cook's distance contour c
 from __future__ import annotations
 
 import math
+import struct
 import warnings
+import zlib
 from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
@@ -47,7 +49,7 @@ PALETTE = {
     "guide": "#a39e93",
     "cook": "#b8433a",
     "bar": "#3f8f8a",
-    "density": ("rgba(31,111,120,0)", "rgba(31,111,120,0.55)"),
+    "density": ((31, 111, 120), 0.55),  # colour of the density shade, opacity of the densest cell
 }
 
 _TICK_STYLE = {"font-size": "10px", "fill": PALETTE["axis"]}
@@ -58,6 +60,11 @@ _HIGHLIGHT_CAP = 250  # selected rows outside the drawn sample that are drawn on
 _COOK_LEVELS = (0.5, 1.0)  # contour levels of Cook's distance (common practice)
 _GUIDE_POINTS = 64
 _GOLDEN = (math.sqrt(5) - 1) / 2
+# A fixed stylesheet (no data in it): the browser skips style, layout and paint of panels out of
+# view (each holds hundreds of SVG elements) until they are scrolled to; the intrinsic size keeps
+# the page's height while they wait.
+_STYLE = ("<style>.afterfit-grid .afterfit-panel"
+          "{content-visibility: auto; contain-intrinsic-size: auto 320px;}</style>")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -621,11 +628,12 @@ class PanelView:
                               grid_color=PALETTE["grid"], color=PALETTE["axis"],
                               label_color=PALETTE["axis"], tick_style=_TICK_STYLE,
                               label_offset="42px", tick_format="~g")
-        self.shade_scale = bq.ColorScale(min=0.0, max=1.0, colors=list(PALETTE["density"]))
-        self.density = bq.HeatMap(color=np.zeros((2, 2), dtype=np.float32),
-                                  x=np.array([0.0, 1.0]), y=np.array([0.0, 1.0]),
-                                  scales={**sc, "color": self.shade_scale}, visible=False,
-                                  null_color=PALETTE["paper"])
+        # the density shade is one PNG per panel: the page only decodes and scales it
+        self.shade = np.zeros((2, 2), dtype=np.float32)
+        self.density = bq.Image(image=W.Image(value=_png(np.zeros((1, 1, 4), np.uint8)),
+                                              format="png"),
+                                x=np.array([0.0, 1.0]), y=np.array([0.0, 1.0]), scales=sc,
+                                pixelated=True, visible=False)
         self.band = bq.Lines(x=np.zeros((2, 2)), y=np.zeros((2, 2)), scales=sc, fill="between",
                              colors=[PALETTE["smoother"]], fill_colors=[PALETTE["smoother"]],
                              fill_opacities=[0.14], stroke_width=0, visible=False)
@@ -748,7 +756,8 @@ class PanelView:
         widgets = [self.density, self.band, self.guides, self.smooth, self.dots]
         if self.highlight is not None:
             widgets.append(self.highlight)
-        widgets += [self.x_axis, self.y_axis, self.figure, self.xs, self.ys, self.shade_scale]
+        widgets += [self.x_axis, self.y_axis, self.figure, self.xs, self.ys]
+        replaced = None
         with _held(widgets):
             _set(self.xs, "min", self.x_range[0])
             _set(self.xs, "max", self.x_range[1])
@@ -788,7 +797,9 @@ class PanelView:
                 _set(self.dots, "selected", None)
                 _set(self.dots, "x", self._unit("x", xp[ok]))
                 _set(self.dots, "y", self._unit("y", yp[ok]))
-                self._show_density(data, drawn, snap)
+                replaced = self._show_density(data, drawn, snap)
+        if replaced is not None:  # after the mark has taken the new image
+            replaced.close()
 
     def _show_guides(self, guides: tuple) -> None:
         if not guides:
@@ -832,26 +843,30 @@ class PanelView:
         _set(self.smooth, "visible", True)
         _set(self.band, "visible", bool(np.isfinite(lo).any() and np.isfinite(hi).any()))
 
-    def _show_density(self, data: PanelData, drawn: DrawnPoints, snap) -> None:
+    def _show_density(self, data: PanelData, drawn: DrawnPoints, snap) -> Any:
+        """Draw the density shade; returns the image widget it replaced (to be closed)."""
         if drawn.complete:
             _set(self.density, "visible", False)
-            return
+            return None
         bins = (60 if data.kind != "strip" else max(2, 8 * len(data.levels)), 40)
         xr, yr = self.x_range, self.y_range
         if snap is not None:
-            ix, iy = snap.codes(data.x, xr, bins[0]), snap.codes(data.y, yr, bins[1])
+            ix = snap.codes(data.x, xr, bins[0])
             # most panels share the residuals (and their range): their row offsets once
             iy = snap.row_offsets(data.y, yr, bins)
         else:
             ix = bin_codes(data.x, value_range=xr, n=bins[0])
             iy = bin_codes(data.y, value_range=yr, n=bins[1])
-        # counted in data units, placed on the marks' unit scales
-        d = density_of_codes(ix, iy, x_range=(0.0, 1.0), y_range=(0.0, 1.0), bins=bins)
-        _set(self.shade_scale, "max", float(max(math.sqrt(d.max_count), 1.0)))
-        _set(self.density, "color", d.shade)
-        _set(self.density, "x", d.x_centres)
-        _set(self.density, "y", d.y_centres)
+        d = density_of_codes(ix, iy, x_range=xr, y_range=yr, bins=bins)
         _set(self.density, "visible", True)
+        if np.array_equal(d.shade, self.shade):
+            return None
+        self.shade = d.shade
+        # The mark follows a new image widget, not a new value of its widget: a fresh one
+        # arrives with its pixels, so the page never shows an image before its data.
+        old = self.density.image
+        self.density.image = W.Image(value=_shade_png(d.shade), format="png")
+        return old
 
     # -- selection ----------------------------------------------------------------------------
     def brushed_mask(self) -> np.ndarray | None:
@@ -899,6 +914,34 @@ class PanelView:
             with b.hold_sync():
                 b.selected_x = None
                 b.selected_y = None
+
+
+def _png(rgba: np.ndarray) -> bytes:
+    """PNG bytes of an ``(height, width, 4)`` uint8 RGBA image, top row first (PNG 1.2: IHDR
+    with 8-bit RGBA, one zlib IDAT of rows each led by filter type 0, IEND)."""
+    h, w, _ = rgba.shape
+    raw = np.zeros((h, 4 * w + 1), dtype=np.uint8)
+    raw[:, 1:] = rgba.reshape(h, 4 * w)
+
+    def chunk(tag: bytes, body: bytes) -> bytes:
+        return (struct.pack(">I", len(body)) + tag + body
+                + struct.pack(">I", zlib.crc32(tag + body) & 0xFFFFFFFF))
+
+    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", struct.pack(">IIBBBBB", w, h, 8, 6, 0, 0, 0))
+            + chunk(b"IDAT", zlib.compress(raw.tobytes(), 6)) + chunk(b"IEND", b""))
+
+
+def _shade_png(shade: np.ndarray) -> bytes:
+    """The density shade as a PNG: one pixel per cell, the palette's colour with an opacity
+    in proportion to ``shade`` (sqrt of the count), the largest at the palette's opacity."""
+    rgb, top = PALETTE["density"]
+    ny, nx = shade.shape
+    rgba = np.empty((ny, nx, 4), dtype=np.uint8)
+    rgba[..., :3] = rgb
+    peak = max(float(shade.max(initial=0.0)), 1.0)
+    # PNG rows run top down; the shade's first row is the lowest y cell
+    rgba[..., 3] = np.rint(shade[::-1] * (255 * top / peak)).astype(np.uint8)
+    return _png(rgba)
 
 
 def _set(widget: Any, name: str, value: Any) -> None:
@@ -1029,7 +1072,8 @@ class ResidualGrid(W.VBox):
         self.unhide_all.on_click(lambda _b: self.show_all())
         self.hidden_bar = W.HBox([self.hidden_pick, self.unhide, self.unhide_all],
                                  layout=W.Layout(display="none", align_items="center"))
-        self.children = [self.note, self.cells, W.HBox([self.more, self.hidden_bar])]
+        self.children = [W.HTML(_STYLE, layout=W.Layout(display="none")), self.note,
+                         self.cells, W.HBox([self.more, self.hidden_bar])]
         self.refresh()
 
     @property
@@ -1144,8 +1188,13 @@ class ResidualGrid(W.VBox):
                 f"{self.titles.get(k, k)} ({msg})" for k, msg in self.problems.items())
         self.note.value = note
         hidden = self._layout.hidden
-        self.hidden_pick.options = [(self.titles[k], k) for k in hidden]
-        self.hidden_bar.layout.display = None if hidden else "none"
+        options = tuple((self.titles[k], k) for k in hidden)
+        if options != self.hidden_pick.options:
+            self.hidden_pick.options = options
+        if hidden and self.hidden_pick.value not in hidden:
+            # the last one hidden, ready for "Show again" (new options select nothing)
+            self.hidden_pick.value = hidden[-1]
+        _set(self.hidden_bar.layout, "display", None if hidden else "none")
 
     def _view_for(self, key: str, kind: str, *, keep: list) -> PanelView:
         """A view for panel ``key``: the widgets of a panel off the grid if there are some (its

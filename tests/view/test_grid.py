@@ -32,6 +32,32 @@ def study():
     return Study(df, df.attrs["first_formula"], groups=["block"])
 
 
+def _decode_rgba_png(data: bytes):
+    """Width, height and alpha channel of an 8-bit RGBA PNG without interlacing, read by the
+    PNG specification (chunk CRCs checked with zlib.crc32; every row filter type 0 here)."""
+    import struct
+    import zlib
+
+    data = bytes(data)
+    assert data[:8] == b"\x89PNG\r\n\x1a\n"
+    pos, idat, header = 8, b"", None
+    while pos < len(data):
+        (length,) = struct.unpack(">I", data[pos:pos + 4])
+        tag, body = data[pos + 4:pos + 8], data[pos + 8:pos + 8 + length]
+        (crc,) = struct.unpack(">I", data[pos + 8 + length:pos + 12 + length])
+        assert crc == zlib.crc32(tag + body) & 0xFFFFFFFF
+        if tag == b"IHDR":
+            header = struct.unpack(">IIBBBBB", body)
+        elif tag == b"IDAT":
+            idat += body
+        pos += 12 + length
+    width, height, depth, colour, _, _, interlace = header
+    assert (depth, colour, interlace) == (8, 6, 0)
+    rows = np.frombuffer(zlib.decompress(idat), dtype=np.uint8).reshape(height, 4 * width + 1)
+    assert (rows[:, 0] == 0).all()
+    return width, height, rows[:, 1:].reshape(height, width, 4)[..., 3]
+
+
 def _brush(wire, view, x, y):
     """Act as the page: press, drag (selected_x/y change), release."""
     wire.from_page(view.brush, state={"brushing": True})
@@ -209,9 +235,20 @@ def test_density_layer_when_sampled(wire, study):
     view = grid.panels["var:irrigation_mm"]
     assert len(view.drawn) == 40
     assert view.density.visible
-    assert view.density.color.dtype == np.float32
+    assert view.shade.dtype == np.float32
     n = len(study.rows)
-    assert round(float((view.density.color.astype(float) ** 2).sum())) == n  # every row counted
+    assert round(float((view.shade.astype(float) ** 2).sum())) == n  # every row counted
+    # the page gets the shade as a PNG: one pixel per cell, opacity in proportion to the shade
+    png = view.density.image.value
+    width, height, alpha = _decode_rgba_png(png)
+    assert (width, height) == (60, 40)
+    expected = np.rint(view.shade[::-1] * (255 * 0.55 / view.shade.max()))
+    np.testing.assert_array_equal(alpha, expected)
+    # counts against numpy's histogram2d over the panel's ranges (rows of the shade are y bins)
+    x = study.data.loc[study.rows, "irrigation_mm"].to_numpy()
+    ref, _, _ = np.histogram2d(study.fit.resid.to_numpy(), x, bins=(40, 60),
+                               range=(view.y_range, view.x_range))
+    np.testing.assert_allclose(view.shade.astype(float) ** 2, ref, rtol=1e-5)
     assert "each panel draws 40" in grid.note.value
     small = ResidualGrid(study, max_panels=50)
     assert not small.panels["var:irrigation_mm"].density.visible
