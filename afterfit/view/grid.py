@@ -595,10 +595,13 @@ def _cook_guides(h: np.ndarray, r: np.ndarray, p: int) -> tuple:
 # one panel's widgets
 # ---------------------------------------------------------------------------------------------
 class PanelView:
-    """The bqplot figure of one panel, its header (subtitle, pin, hide) and its brush.
+    """One place on the grid: a bqplot figure, its header (subtitle, pin, hide) and its brush.
 
-    Widgets are created once per panel key and reused for every refresh, so a refit only sends
-    new arrays (as binary buffers) and new axis bounds.
+    A place shows whichever panel ranks there (``key``, ``kind``); its widgets are created once
+    and reused for every refresh and every panel that comes to this place, so a refit or a move
+    only sends new arrays (as binary buffers) and new axis bounds, and the page never builds a
+    figure again.  It holds the marks of every kind of panel (dots and bars) and shows those of
+    its current kind.
 
     The marks sit on fixed unit scales (``mx``, ``my``: 0 to 1 across the plot area) and get
     their coordinates already scaled; the axes and the brush use scales in data units (``xs``,
@@ -607,7 +610,7 @@ class PanelView:
     every mark of the panel again for each scale that changes).
     """
 
-    def __init__(self, key: str, kind: str, *, on_brush: Callable, on_pin: Callable,
+    def __init__(self, key: str | None, kind: str, *, on_brush: Callable, on_pin: Callable,
                  on_hide: Callable):
         self.key = key
         self.kind = kind
@@ -637,53 +640,49 @@ class PanelView:
         self.band = bq.Lines(x=np.zeros((2, 2)), y=np.zeros((2, 2)), scales=sc, fill="between",
                              colors=[PALETTE["smoother"]], fill_colors=[PALETTE["smoother"]],
                              fill_opacities=[0.14], stroke_width=0, visible=False)
-        self._style_band(kind)
         self.guides = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)), scales=sc,
                                colors=[PALETTE["guide"]], stroke_width=1.2, line_style="dashed",
                                visible=False)
         self.smooth = bq.Lines(x=np.zeros((1, 2)), y=np.zeros((1, 2)), scales=sc,
                                colors=[PALETTE["smoother"]], stroke_width=2.2, visible=False)
+        self.bars = bq.Bars(x=np.zeros(1), y=np.zeros(1), scales=sc, colors=[PALETTE["bar"]],
+                            padding=0.35, stroke_width=0, visible=False)
+        # Without names, bqplot labels each dot "Dot<i>" (hidden) and rewrites every label on
+        # every redraw; one empty name (and dots keyed by position) leaves them empty.
+        quiet = {"names": np.array([""]), "names_unique": False, "display_names": False}
+        self.scatter = bq.Scatter(
+            x=np.zeros(0), y=np.zeros(0), scales=sc, colors=[PALETTE["dot"]],
+            opacities=[0.7], default_size=16, stroke_width=0,
+            selected_style={"fill": PALETTE["selected"], "opacity": 1.0},
+            unselected_style={"opacity": 0.25}, **quiet,
+        )
+        self.spot = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc,
+                               colors=[PALETTE["selected"]], opacities=[0.85], default_size=16,
+                               stroke_width=0, **quiet)
+        self.selector = bq.interacts.BrushSelector(x_scale=self.xs, y_scale=self.ys,
+                                                   marks=[self.scatter],
+                                                   color=PALETTE["selected"])
+        self.selector.observe(lambda ch: on_brush(self, ch), names=["brushing"])
         # the smoother is drawn over the dots: it is the summary the eye should find first
-        marks: list = [self.density, self.band, self.guides]
-        if kind == "bars":
-            self.dots = bq.Bars(x=np.zeros(1), y=np.zeros(1), scales=sc,
-                                colors=[PALETTE["bar"]], padding=0.35, stroke_width=0)
-            self.highlight = None
-            marks += [self.dots, self.smooth]
-        else:
-            # Without names, bqplot labels each dot "Dot<i>" (hidden) and rewrites every label
-            # on every redraw; one empty name (and dots keyed by position) leaves them empty.
-            quiet = {"names": np.array([""]), "names_unique": False, "display_names": False}
-            self.dots = bq.Scatter(
-                x=np.zeros(0), y=np.zeros(0), scales=sc, colors=[PALETTE["dot"]],
-                opacities=[0.7], default_size=16, stroke_width=0,
-                selected_style={"fill": PALETTE["selected"], "opacity": 1.0},
-                unselected_style={"opacity": 0.25}, **quiet,
-            )
-            self.highlight = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc,
-                                        colors=[PALETTE["selected"]], opacities=[0.85],
-                                        default_size=16, stroke_width=0, **quiet)
-            marks += [self.dots, self.smooth, self.highlight]
-        self.brush = None
-        if kind != "bars":
-            self.brush = bq.interacts.BrushSelector(x_scale=self.xs, y_scale=self.ys,
-                                                    marks=[self.dots], color=PALETTE["selected"])
-            self.brush.observe(lambda ch: on_brush(self, ch), names=["brushing"])
         self.figure = bq.Figure(
-            marks=marks, axes=[self.x_axis, self.y_axis], title="", title_style=_TITLE_STYLE,
-            background_style={"fill": PALETTE["paper"]}, interaction=self.brush,
+            marks=[self.density, self.band, self.guides, self.bars, self.scatter, self.smooth,
+                   self.spot],
+            axes=[self.x_axis, self.y_axis], title="", title_style=_TITLE_STYLE,
+            background_style={"fill": PALETTE["paper"]}, interaction=None,
             fig_margin={"top": 30, "bottom": 44, "left": 60, "right": 16},
             padding_x=0.0, padding_y=0.0, animation_duration=0,
             layout=W.Layout(width="100%", height="280px"),
         )
+        self._style_kind(kind)
         self.subtitle = W.Label("", style={"font_size": "11px", "text_color": PALETTE["muted"]},
                                 layout=W.Layout(flex="1 1 auto", overflow="hidden"))
         self.pin = W.ToggleButton(False, icon="thumb-tack", tooltip="Keep this panel at the top",
                                   layout=W.Layout(width="30px", height="24px", padding="0"))
         self.hide = W.Button(icon="eye-slash", tooltip="Hide this panel (restore it below the grid)",
                              layout=W.Layout(width="30px", height="24px", padding="0"))
-        self.pin.observe(lambda ch: on_pin(self.key, bool(ch["new"])), names=["value"])
-        self.hide.on_click(lambda _b: on_hide(self.key))
+        self.pin.observe(lambda ch: on_pin(self.key, bool(ch["new"])) if self.key else None,
+                         names=["value"])
+        self.hide.on_click(lambda _b: on_hide(self.key) if self.key else None)
         header = W.HBox([self.subtitle, self.pin, self.hide],
                         layout=W.Layout(align_items="center", padding="2px 6px 0 8px"))
         self.box = W.VBox([header, self.figure], layout=W.Layout(
@@ -692,33 +691,49 @@ class PanelView:
         self.box.add_class("afterfit-panel")  # a stable hook for the browser tests
 
     @property
-    def family(self) -> str:
-        """"bars" or "points": panels of one family can take each other's widgets."""
-        return _family(self.kind)
+    def dots(self) -> Any:
+        """The mark of the rows (a Scatter), or of the lags for a "bars" panel (Bars)."""
+        return self.bars if self.kind == "bars" else self.scatter
 
-    def rekey(self, key: str, kind: str) -> None:
-        """Take over another panel of the same family (its widgets are already on the page)."""
-        if _family(kind) != self.family:
-            raise ValueError(f"a {self.kind} panel cannot show a {kind} panel")
+    @property
+    def highlight(self) -> Any:
+        """Selected rows that are not among the dots (None for a "bars" panel: no rows)."""
+        return None if self.kind == "bars" else self.spot
+
+    @property
+    def brush(self) -> Any:
+        """The brush (None for a "bars" panel: lags are not rows)."""
+        return None if self.kind == "bars" else self.selector
+
+    def assign(self, key: str, kind: str) -> None:
+        """Show panel ``key`` here from now on (its data follow with :meth:`show`)."""
         self.key = key
         self.data = None
         self.drawn = np.empty(0, dtype=np.int64)
         self.extra = np.empty(0, dtype=np.int64)
         self.clear_brush()
-        if kind != self.kind:
-            self.kind = kind
-            self._style_band(kind)
+        self.kind = kind  # its styles go to the page with the data (see show)
 
-    def _style_band(self, kind: str) -> None:
-        if kind == "strip":
-            # per level: a vertical band segment (drawn thick, translucent)
-            _set(self.band, "fill", "none")
-            _set(self.band, "stroke_width", 7.0)
-            _set(self.band, "opacities", [0.22])
-        else:
-            _set(self.band, "fill", "between")
-            _set(self.band, "stroke_width", 0.0)
-            _set(self.band, "opacities", [1.0])
+    def _style_kind(self, kind: str) -> None:
+        points = kind != "bars"
+        with _held([self.band, self.bars, self.scatter, self.spot, self.figure, self.x_axis]):
+            if kind == "strip":
+                # per level: a vertical band segment (drawn thick, translucent)
+                _set(self.band, "fill", "none")
+                _set(self.band, "stroke_width", 7.0)
+                _set(self.band, "opacities", [0.22])
+            else:
+                _set(self.band, "fill", "between")
+                _set(self.band, "stroke_width", 0.0)
+                _set(self.band, "opacities", [1.0])
+            _set(self.bars, "visible", not points)
+            _set(self.scatter, "visible", points)
+            _set(self.spot, "visible", points)
+            _set(self.figure, "interaction", self.selector if points else None)
+            _set(self.x_axis, "tick_format", "~g" if points else "d")
+            if not points:
+                _set(self.x_axis, "tick_values", None)
+                _set(self.x_axis, "tick_labels", {})
 
     # -- data ---------------------------------------------------------------------------------
     def to_data(self, axis: str, values) -> np.ndarray:
@@ -753,12 +768,12 @@ class PanelView:
             extents.append((0.0, 0.0))
         self.x_range = (float(x_range[0]), float(x_range[1]))
         self.y_range = _padded(extents)
-        widgets = [self.density, self.band, self.guides, self.smooth, self.dots]
-        if self.highlight is not None:
-            widgets.append(self.highlight)
-        widgets += [self.x_axis, self.y_axis, self.figure, self.xs, self.ys]
+        self.kind = data.kind
+        widgets = [self.density, self.band, self.guides, self.smooth, self.bars, self.scatter,
+                   self.spot, self.x_axis, self.y_axis, self.figure, self.xs, self.ys]
         replaced = None
         with _held(widgets):
+            self._style_kind(data.kind)
             _set(self.xs, "min", self.x_range[0])
             _set(self.xs, "max", self.x_range[1])
             _set(self.ys, "min", self.y_range[0])
@@ -778,7 +793,7 @@ class PanelView:
                 _set(self.x_axis, "tick_labels",
                      {str(int(t)): _short(data.levels[int(t)]) for t in ticks})
             elif data.kind == "bars":
-                _set(self.x_axis, "tick_format", "d")
+                pass  # whole lags, with the axis's own ticks
             else:
                 # about five round ticks: a panel is narrow and long labels would run together
                 _set(self.x_axis, "tick_values", _round_ticks(*self.x_range))
@@ -786,17 +801,18 @@ class PanelView:
             self._show_guides(data.guides)
             self._show_smoother(data)
             if data.kind == "bars":
-                _set(self.dots, "x", self._unit("x", x))
-                _set(self.dots, "y", self._unit("y", np.nan_to_num(y)))
-                _set(self.dots, "base", float(self._unit("y", 0.0)))
+                _set(self.bars, "x", self._unit("x", x))
+                _set(self.bars, "y", self._unit("y", np.nan_to_num(y)))
+                _set(self.bars, "base", float(self._unit("y", 0.0)))
+                _set(self.density, "visible", False)
             else:
                 pos = drawn.positions
                 xp, yp = x[pos], y[pos]
                 ok = np.isfinite(xp) & np.isfinite(yp)
                 self.drawn = pos[ok]
-                _set(self.dots, "selected", None)
-                _set(self.dots, "x", self._unit("x", xp[ok]))
-                _set(self.dots, "y", self._unit("y", yp[ok]))
+                _set(self.scatter, "selected", None)
+                _set(self.scatter, "x", self._unit("x", xp[ok]))
+                _set(self.scatter, "y", self._unit("y", yp[ok]))
                 replaced = self._show_density(data, drawn, snap)
         if replaced is not None:  # after the mark has taken the new image
             replaced.close()
@@ -909,8 +925,8 @@ class PanelView:
 
     def clear_brush(self) -> None:
         """Remove this panel's brush rectangle (another panel holds the selection now)."""
-        b = self.brush
-        if b is not None and (b.selected_x is not None or b.selected_y is not None):
+        b = self.selector
+        if b.selected_x is not None or b.selected_y is not None:
             with b.hold_sync():
                 b.selected_x = None
                 b.selected_y = None
@@ -993,10 +1009,6 @@ def _round_ticks(lo: float, hi: float, n: int = 5) -> np.ndarray:
     return np.round(ticks, max(0, -math.floor(math.log10(step)) + 2))
 
 
-def _family(kind: str) -> str:
-    return "bars" if kind == "bars" else "points"
-
-
 def _short(text: str, k: int = 16) -> str:
     return text if len(text) <= k else text[: k - 1] + "…"
 
@@ -1050,11 +1062,12 @@ class ResidualGrid(W.VBox):
         self._layout = _Layout()
         self._snap: _Snapshot | None = None
         self._built: dict[str, PanelData] = {}
-        self._views: list[PanelView] = []  # on the page, in the order first shown
+        self._places: list[PanelView] = []  # the grid's places, top first
         self.problems: dict[str, str] = {}
         self._mask: np.ndarray | None = None
         self._selection = pd.Index([])
-        self._source: str | None = None
+        self._source: str | None = None  # the panel holding the brush rectangle
+        self._source_range: tuple | None = None
         self._busy = False
         self._listeners: list[Callable] = []
         self.cells = W.GridBox(layout=W.Layout(
@@ -1139,36 +1152,40 @@ class ResidualGrid(W.VBox):
         shown = visible[: self.max_panels]
         order = []
         for key in shown:
-            data = self._built.get(key)
-            if data is None:
+            if key not in self._built:
                 try:
-                    data = build_panel(snap, key, self.titles[key])
+                    self._built[key] = build_panel(snap, key, self.titles[key])
                 except Exception as exc:  # one panel the Study cannot give must not stop the rest
                     self.problems[key] = str(exc).strip() or type(exc).__name__
                     continue
-                self._built[key] = data
-            view = self.panels.get(key)
-            if view is None or view.family != _family(data.kind):
-                view = self._view_for(key, data.kind, keep=shown)
+            order.append(key)
+        self.order = order
+        # One place per panel on screen, in rank order: a panel that moves takes the widgets of
+        # the place it moves to, which are on the page already.  (Reordering the children would
+        # make the page build every figure after the first change anew.)
+        while len(self._places) < len(order):
+            self._places.append(PanelView(None, "scatter", on_brush=self._brushed,
+                                          on_pin=self.pin, on_hide=self.hide_panel))
+        self.panels = {}
+        for view, key in zip(self._places, order):
+            data = self._built[key]
+            if view.key != key:
+                view.assign(key, data.kind)
+            self.panels[key] = view
             if view.pin.value != (key in self._layout.pinned):
                 view.pin.value = key in self._layout.pinned
             if data.subtitle != view.subtitle.value:
                 view.subtitle.value = data.subtitle
-            if view.data is not data:  # pin, hide and "more" move panels without resending
+            if view.data is not data:  # pin, hide and "more" resend data, they compute nothing
                 view.show(data, snap.drawn, snap=snap)
-            order.append(key)
-        self.order = order
-        # The page keeps one view per panel box, in the order the boxes were first shown: the
-        # CSS order places them, and panels off the grid are only hidden.  Reordering the
-        # children instead would make the page build every moved figure anew.
-        place = {key: i for i, key in enumerate(order)}
-        for view in self._views:
-            if view.key in place and self.panels.get(view.key) is view:
-                _set(view.box.layout, "order", str(place[view.key]))
-                _set(view.box.layout, "display", None)
-            else:
-                _set(view.box.layout, "display", "none")
-        boxes = [v.box for v in self._views]
+                if key == self._source and self._source_range is not None:
+                    # the brush rectangle goes with its panel
+                    with view.selector.hold_sync():
+                        view.selector.selected_x, view.selector.selected_y = self._source_range
+            _set(view.box.layout, "display", None)
+        for view in self._places[len(order):]:
+            _set(view.box.layout, "display", "none")
+        boxes = [v.box for v in self._places]
         if list(self.cells.children) != boxes:
             self.cells.children = boxes
         n_more = len(visible) - len(shown)
@@ -1195,26 +1212,6 @@ class ResidualGrid(W.VBox):
             # the last one hidden, ready for "Show again" (new options select nothing)
             self.hidden_pick.value = hidden[-1]
         _set(self.hidden_bar.layout, "display", None if hidden else "none")
-
-    def _view_for(self, key: str, kind: str, *, keep: list) -> PanelView:
-        """A view for panel ``key``: the widgets of a panel off the grid if there are some (its
-        figure is on the page already, and a new figure costs the page far more than new data);
-        else new widgets."""
-        if key in self.panels:  # its widgets are of the other family: they wait for another
-            del self.panels[key]
-        spare = next((v for v in self._views if v.family == _family(kind)
-                      and (self.panels.get(v.key) is not v or v.key not in keep)), None)
-        if spare is not None:
-            if self.panels.get(spare.key) is spare:
-                del self.panels[spare.key]
-            spare.rekey(key, kind)
-            view = spare
-        else:
-            view = PanelView(key, kind, on_brush=self._brushed, on_pin=self.pin,
-                             on_hide=self.hide_panel)
-            self._views.append(view)
-        self.panels[key] = view
-        return view
 
     def _show_more(self) -> None:
         self.max_panels += 6
@@ -1274,7 +1271,10 @@ class ResidualGrid(W.VBox):
         try:
             mask = view.brushed_mask()
             self._source = view.key if mask is not None else None
-            for other in self.panels.values():
+            b = view.selector
+            self._source_range = ((list(b.selected_x), list(b.selected_y))
+                                  if mask is not None else None)
+            for other in self._places:
                 if other is not view:
                     other.clear_brush()
             self._set_mask(mask)
@@ -1286,9 +1286,10 @@ class ResidualGrid(W.VBox):
         """Select rows by index label (rows not in the current fit are ignored)."""
         rows = self._snap.rows
         mask = rows.isin(pd.Index(labels))
-        for v in self.panels.values():
+        for v in self._places:
             v.clear_brush()
         self._source = None
+        self._source_range = None
         self._set_mask(mask if mask.any() else None)
         self._announce()
 

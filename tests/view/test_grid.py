@@ -140,14 +140,17 @@ def test_pin_and_hide_from_the_page(wire, study):
     last = grid.order[-1]
     wire.from_page(grid.panels[last].pin, state={"value": True})
     assert grid.order[0] == last and grid.pinned == [last]
-    # the page places the panels by CSS order (the boxes stay where they are in the DOM)
-    for place, key in enumerate(grid.order):
-        assert wire.state(grid.panels[key].box.layout)["order"] == str(place)
+    # the panel moved to the first place: that place's figure shows it now (no figure rebuilt)
+    assert grid.cells.children[0] is grid.panels[last].box
+    assert wire.state(grid.panels[last].figure)["title"] == grid.titles[last]
+    assert grid.panels[last].pin.value
     # hide: off the grid, listed for restoring
     victim = grid.order[1]
     grid.panels[victim].hide.click()
     assert victim not in grid.order and grid.hidden == [victim]
-    assert wire.state(grid.panels[victim].box.layout)["display"] == "none"
+    assert victim not in grid.panels
+    spare = grid.cells.children[len(grid.order)]  # one place fewer on screen
+    assert wire.state(spare.layout)["display"] == "none"
     assert grid.hidden_pick.options == ((grid.titles[victim], victim),)
     assert grid.hidden_bar.layout.display is None
     # pins and hidden panels survive a refit
@@ -195,6 +198,52 @@ def test_dots_are_binary_buffers_on_fixed_scales(wire, study):
     assert view.ys.min < r.min() and view.ys.max > r.max()
     state = wire.state(view.xs)
     assert state["min"] == view.xs.min and state["max"] == view.xs.max
+
+
+def test_a_refit_redraws_each_mark_once_on_fixed_mark_scales(wire, study):
+    grid = ResidualGrid(study, budget=40, max_panels=50)
+    view = grid.panels["var:irrigation_mm"]
+    # marks on unit scales that never change; the axes and the brush on data-unit scales
+    assert view.dots.scales == {"x": view.mx, "y": view.my}
+    assert view.brush.x_scale is view.xs and view.x_axis.scale is view.xs
+    wire.clear()
+    study.add("I(tree_age ** 2)", reason="age curve")
+    grid.refresh()
+    for key in grid.order:
+        v = grid.panels[key]
+        assert not wire.updates(v.mx) and not wire.updates(v.my)
+        # one message per mark and scale: the page redraws each once
+        for w in (v.scatter, v.bars, v.density, v.band, v.guides, v.smooth, v.xs, v.ys):
+            assert len(wire.updates(w)) <= 1, (key, type(w).__name__)
+        if v.kind != "bars":
+            # what the dots show is the panel's data at the drawn rows
+            np.testing.assert_allclose(v.to_data("x", v.dots.x), v.data.x[v.drawn], atol=1e-9)
+            np.testing.assert_allclose(v.to_data("y", v.dots.y), v.data.y[v.drawn], atol=1e-9)
+    resid = study.fit.resid.to_numpy()
+    fitted = grid.panels["fitted"]
+    assert fitted.ys.min < resid.min() and fitted.ys.max > resid.max()
+    # nothing unchanged is sent again: a second refresh of the same state sends no coordinates
+    wire.clear()
+    grid.refresh()
+    assert not any("x" in m.data.get("state", {}) for key in grid.order
+                   for m in wire.log(grid.panels[key].dots))
+
+
+def test_values_that_a_refit_keeps_are_computed_once(wire, study):
+    grid = ResidualGrid(study, budget=40, max_panels=50)
+    cache = grid._snap.cache
+    x = grid.panels["var:irrigation_mm"].data.x
+    study.add("I(tree_age ** 2)", reason="age curve")
+    grid.refresh()
+    # same rows: the variables' values (and their ranges and density cells) are kept
+    assert grid._snap.cache is cache and grid.panels["var:irrigation_mm"].data.x is x
+    # other rows: everything is read again, and the density still counts every fitted row
+    study.exclude(study.rows[:7], "checked: sensor swapped")
+    grid.refresh()
+    assert grid._snap.cache is not cache
+    view = grid.panels["var:irrigation_mm"]
+    np.testing.assert_array_equal(view.data.x, study.data.loc[study.rows, "irrigation_mm"])
+    assert round(float((view.shade.astype(float) ** 2).sum())) == len(study.rows)
 
 
 def test_sample_keeps_extremes_and_is_seeded(study):
@@ -263,6 +312,19 @@ def test_qq_positions_match_statsmodels(wire, study):
     ref = ProbPlot(y, a=0.375).theoretical_quantiles
     np.testing.assert_allclose(np.sort(data.x), ref, rtol=1e-12)
     assert np.array_equal(np.argsort(data.x), np.argsort(y, kind="stable"))
+
+
+def test_qq_positions_with_tied_residuals_match_statsmodels(wire, study):
+    # repeated rows have equal studentized residuals: ties keep their row order
+    df = pd.concat([study.data, study.data.iloc[:40]], ignore_index=True)
+    tied = Study(df, df.attrs["first_formula"])
+    grid = ResidualGrid(tied, max_panels=50)
+    data = grid.panels["qq"].data
+    y = tied.influence["student_ext"].to_numpy()
+    assert len(np.unique(y)) < len(y)
+    ref = ProbPlot(y, a=0.375).theoretical_quantiles  # statsmodels, Blom's positions
+    np.testing.assert_allclose(np.sort(data.x), ref, rtol=1e-12)
+    assert np.array_equal(np.argsort(data.x, kind="stable"), np.argsort(y, kind="stable"))
 
 
 def test_partial_residuals_match_statsmodels(wire, study):
@@ -353,6 +415,23 @@ def test_only_the_release_does_the_work(wire, study):
                if grid.panels[k].highlight is not None)
 
 
+def test_the_brush_rectangle_moves_with_its_panel(wire, study):
+    grid = ResidualGrid(study, max_panels=50)
+    key = grid.order[2]
+    source = grid.panels[key]
+    assert source.brush is not None
+    x0, x1 = source.xs.min, source.xs.max
+    _brush(wire, source, (x0, x1), (-1.0, 1.0))
+    chosen = grid.selection
+    assert len(chosen)
+    grid.pin(grid.order[-1])  # every panel moves down one place
+    moved = grid.panels[key]
+    assert moved is not source
+    assert list(moved.brush.selected_x) == [x0, x1] and list(moved.brush.selected_y) == [-1, 1]
+    assert sum(v.selector.selected_x is not None for v in grid._places) == 1
+    assert grid.selection.equals(chosen)
+
+
 def test_brush_on_groups_selects_levels(wire, study):
     grid = ResidualGrid(study, max_panels=50)
     view = grid.panels["group:cultivar"]
@@ -372,23 +451,30 @@ def test_selection_follows_a_refit(wire, study):
     assert f"{len(study.rows):,} rows" in grid.note.value
 
 
-def test_moving_panels_resends_nothing_but_the_order(wire, study, monkeypatch):
+def test_moving_panels_computes_nothing_and_builds_no_figure(wire, study, monkeypatch):
     grid = ResidualGrid(study, max_panels=50)
     calls = []
     original = study.binned_means
     monkeypatch.setattr(study, "binned_means", lambda *a, **k: calls.append(a) or original(*a, **k))
+    built = {key: grid.panels[key].data for key in grid.order}
+    children = grid.cells.children
     wire.clear()
     last = grid.order[-1]
     grid.pin(last)
     grid.hide_panel(grid.order[1])
     grid.show_all()
     assert calls == []  # nothing recomputed
-    for key in grid.order:
-        for m in wire.log(grid.panels[key].dots):
-            assert "x" not in m.data.get("state", {})  # no coordinates sent again
-    # only the panels' places changed: no figure is rebuilt on the page
-    assert not wire.updates(grid.cells)
-    assert wire.updates(grid.panels[last].box.layout)
+    assert all(grid.panels[key].data is built[key] for key in grid.order)
+    # the page builds no widget and no figure (a small table: no density image either): the
+    # places stay, their data change
+    assert not [m for c in wire.comms for m in c.log if m.msg_type == "comm_open"]
+    assert grid.cells.children == children and not wire.updates(grid.cells)
+    for place, key in enumerate(grid.order):
+        view = grid.panels[key]
+        assert grid.cells.children[place] is view.box
+        assert wire.state(view.figure)["title"] == grid.titles[key]
+        np.testing.assert_allclose(view.to_data("x", view.dots.x),
+                                   built[key].x[view.drawn], rtol=1e-12, atol=1e-12)
 
 
 def test_a_panel_the_study_cannot_give_is_reported(wire, study, monkeypatch):
