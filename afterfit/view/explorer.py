@@ -35,8 +35,11 @@ _TICK = 0.25
 _REFRESH_WAIT = 30.0  # most seconds the worker waits for the page to catch up between actions
 _LATER_ROWS = 200_000  # from this many rows the tray and audit log fill in after the display
 _LATER = "__later__"
-_PRIMARY = ("header", "model strip", "fit meter", "residual grid", "row inspector", "timeline",
-            "export code")
+# redraw stages after a change, cheapest first: the fit and its cross-validation; then the grid
+# (influence, pattern scores and smoothers); then candidate terms; then every check (audit log)
+_FIRST = ("header", "model strip", "fit meter", "timeline", "export code")
+_GRID = ("residual grid", "row inspector")
+_PRIMARY = _FIRST + _GRID
 # the checks the residual grid ranks panels by; the rest (White, Harvey-Collier, ...) come later
 GRID_CHECKS = ("Jarque-Bera", "Breusch-Pagan (Koenker)", "Ljung-Box")
 _SMALL_N_PER_PARAMETER = 10  # rows per parameter below which a fit is called small (common practice)
@@ -270,7 +273,8 @@ class Explorer(W.VBox):
                 # the grid, meter and timeline first; candidate terms (the slow part on large
                 # tables) after them, so a refit shows as soon as its own numbers exist.  The
                 # Study's results are computed here, off the page's thread, and cached per state.
-                self._stage(job, "redraw", self._warm_primary, _PRIMARY)
+                self._stage(job, "redraw", self._warm_first, _FIRST)
+                self._stage(job, "redraw the residual grid", self._warm_grid, _GRID)
                 self._stage(job, "update candidate terms", self._warm_tray, ("term tray",))
                 # the audit log reports every specification check; on large tables White's and
                 # Harvey-Collier's take seconds, so they run last
@@ -299,10 +303,17 @@ class Explorer(W.VBox):
         self._post(show)
         self._refreshed.wait(_REFRESH_WAIT)
 
-    def _warm_primary(self) -> None:
+    def _warm_first(self) -> None:
         s = self._study
-        s.fit, s.influence, s.pattern_scores(), s.meter()
-        s.checks(only=GRID_CHECKS)
+        s.fit, s.meter()
+
+    def _warm_grid(self) -> None:
+        s = self._study
+        s.influence, s.pattern_scores(), s.checks(only=GRID_CHECKS)
+
+    def _warm_primary(self) -> None:
+        self._warm_first()
+        self._warm_grid()
 
     def _warm_tray(self) -> None:
         self._study.candidates()

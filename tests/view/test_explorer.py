@@ -143,9 +143,9 @@ def test_actions_run_on_the_worker_and_everything_follows(wire, study):
     w.run(act, f"add {SQUARE}")
     assert w.wait(60)
     assert seen == ["afterfit-worker"]
-    # three staged refreshes per change: grid, meter, timeline, model strip and code; then
-    # candidates; then the specification checks and the audit log
-    assert w.refresh_count == before + 3
+    # four staged refreshes per change: meter, timeline, model strip and code; then the grid and
+    # the inspector; then candidates; then the specification checks and the audit log
+    assert w.refresh_count == before + 4
     assert SQUARE in w.export.code
     assert _undated(w.export.audit) == _undated(study.audit())
     assert SQUARE in w.tray.terms
@@ -208,8 +208,8 @@ def test_changes_from_another_cell_show(wire, study):
     w = Explorer(study)
     before = w.refresh_count
     study.exclude(study.rows[:2], "duplicate entries")  # as from another cell
-    assert w.wait(60)  # the worker computes, then redraws in three stages
-    assert w.refresh_count == before + 3
+    assert w.wait(60)  # the worker computes, then redraws in four stages
+    assert w.refresh_count == before + 4
     assert "2 excluded" in w.header.value
     assert [o[0] for o in w.inspector.excluded_list.options][0].endswith("duplicate entries")
     study.undo()
