@@ -45,10 +45,14 @@ def row_table(study: Any, labels) -> pd.DataFrame:
     Columns: the model's variables (response first), ``residual``, ``leverage`` and ``cooks_d``;
     index: the rows' labels in the order given.
     """
-    rows = study.rows
     labels = pd.Index(labels)
-    labels = labels[labels.isin(rows)]
     variables = model_variables(study)
+    if len(labels) == 0:  # nothing selected: no pass over the rows (a million, maybe)
+        table = study.data.iloc[:0][variables].copy()
+        for c in ("residual", "leverage", "cooks_d"):
+            table[c] = np.array([], dtype=float)
+        return table
+    labels = labels[labels.isin(study.rows)]
     table = study.data.loc[labels, variables].copy()
     table["residual"] = study.fit.resid.reindex(labels).to_numpy()
     infl = study.influence
