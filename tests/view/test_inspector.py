@@ -174,3 +174,12 @@ def _walk(widget):
     for child in getattr(widget, "children", ()):
         out.extend(_walk(child))
     return out
+
+
+def test_empty_selection_has_the_same_columns_as_a_selection(study):
+    # nothing selected takes a shortcut (no pass over the rows); its table must look the same
+    empty = row_table(study, [])
+    some = row_table(study, study.rows[:3])
+    assert list(empty.columns) == list(some.columns) and len(empty) == 0
+    assert len(some) == 3
+    np.testing.assert_allclose(some["residual"], study.fit.resid.iloc[:3])
