@@ -33,7 +33,8 @@ from scipy import special
 from afterfit.view.sampling import (DrawnPoints, bin_codes, choose_points,
                                    density_of_codes)
 
-__all__ = ["ResidualGrid", "PanelData", "PanelView", "Score", "PALETTE", "panel_keys"]
+__all__ = ["ResidualGrid", "PanelData", "PanelView", "Score", "PALETTE", "GRID_CHECKS",
+           "panel_keys"]
 
 # Our own palette: warm paper background, deep teal dots, ember for the selection, plum smoother.
 PALETTE = {
@@ -51,6 +52,9 @@ PALETTE = {
     "bar": "#3f8f8a",
     "density": ((31, 111, 120), 0.55),  # colour of the density shade, opacity of the densest cell
 }
+
+# the specification checks whose results score panels (Q-Q, spread, residual memory)
+GRID_CHECKS = ("Jarque-Bera", "Breusch-Pagan (Koenker)", "Ljung-Box")
 
 _TICK_STYLE = {"font-size": "10px", "fill": PALETTE["axis"]}
 _TITLE_STYLE = {"font-size": "13px", "fill": PALETTE["text"], "font-weight": "600"}
@@ -187,6 +191,10 @@ def _range(*arrays: np.ndarray, pad: float = 0.05) -> tuple[float, float]:
 
 
 def _float(a: Any) -> np.ndarray:
+    """``a`` as float64, with NaN where a value is not a number."""
+    dtype = getattr(a, "dtype", None)
+    if isinstance(dtype, np.dtype) and dtype.kind in "fiu":  # plain numbers: no pandas pass
+        return np.asarray(a, dtype=float)
     return np.asarray(pd.to_numeric(pd.Series(np.asarray(a)), errors="coerce"), dtype=float)
 
 
@@ -304,7 +312,10 @@ class _Snapshot:
         self.rows: pd.Index = study.rows
         self.cache = cache if cache is not None and cache.fits(study) else _RowCache(study)
         self.memo = _Memo()
+        self.built: dict[str, PanelData] = {}  # panel key -> data, as the grid builds them
         fit = study.fit
+        self.fit_obj = fit
+        self.influence_obj = study.influence
         self.resid = self._on_rows(fit.resid)
         self.fitted = self._on_rows(fit.fitted)
         infl = study.influence
@@ -368,9 +379,14 @@ class _Snapshot:
 
     @property
     def checks(self) -> pd.DataFrame:
+        """The specification checks that score panels (only those: the others can take seconds
+        on large tables and are computed later, for the export)."""
         if self._checks is None:
             try:
-                self._checks = self.study.checks()
+                try:
+                    self._checks = self.study.checks(only=GRID_CHECKS)
+                except TypeError:  # a Study-like object without the only= option
+                    self._checks = self.study.checks()
             except Exception:
                 self._checks = pd.DataFrame(columns=["statistic", "pvalue"])
         return self._checks
@@ -1061,6 +1077,7 @@ class ResidualGrid(W.VBox):
         self.scores: dict[str, Score] = {}
         self._layout = _Layout()
         self._snap: _Snapshot | None = None
+        self._recent: list[_Snapshot] = []  # the current state's snapshot and the one before
         self._built: dict[str, PanelData] = {}
         self._places: list[PanelView] = []  # the grid's places, top first
         self.problems: dict[str, str] = {}
@@ -1117,11 +1134,23 @@ class ResidualGrid(W.VBox):
     # -- refresh ------------------------------------------------------------------------------
     def refresh(self) -> None:
         """Redraw every visible panel from the Study's current fit and re-apply the selection."""
-        old = self._snap
-        snap = _Snapshot(self._study, budget=self.budget, seed=self.seed,
-                         cache=old.cache if old is not None else None)
+        study = self._study
+        fit, influence = study.fit, study.influence
+        # The Study caches its results per state: the same fit and influence objects mean the
+        # same state (a refresh without a change, undo or redo), whose panels were built here
+        # already.  Otherwise the state is read anew, keeping what the rows share.
+        snap = next((s for s in self._recent if s.fit_obj is fit and s.influence_obj is influence
+                     and s.cache.fits(study)), None)
+        if snap is None:
+            old = self._snap
+            snap = _Snapshot(study, budget=self.budget, seed=self.seed,
+                             cache=old.cache if old is not None else None)
+        for other in self._recent:
+            if other is not snap:
+                other.memo = _Memo()  # a state not on screen keeps its panels, not its codes
+        self._recent = [snap] + [s for s in self._recent if s is not snap][:1]
         self._snap = snap
-        self._built = {}
+        self._built = snap.built
         self.problems = {}
         plan = panel_keys(self._study, cache=snap.cache)
         self.titles = dict(plan)
@@ -1324,11 +1353,11 @@ def _score_for(snap: _Snapshot, key: str) -> Score:
         # a partial residual plot shows the same leftover structure in its variable
         return snap.score_of(key.split(":", 1)[1])
     if key == "qq":
-        return snap.check_score("Jarque-Bera")
+        return snap.check_score(GRID_CHECKS[0])
     if key == "spread":
-        return snap.check_score("Breusch-Pagan (Koenker)")
+        return snap.check_score(GRID_CHECKS[1])
     if key == "memory":
-        return snap.check_score("Ljung-Box")
+        return snap.check_score(GRID_CHECKS[2])
     if key == "influence":
         return snap.influence_score()
     return Score(np.nan, np.nan, "score")

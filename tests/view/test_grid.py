@@ -16,7 +16,7 @@ from statsmodels.graphics.gofplots import ProbPlot
 from statsmodels.stats.outliers_influence import OLSInfluence
 
 from afterfit.model.study import Study
-from afterfit.view.grid import ResidualGrid
+from afterfit.view.grid import GRID_CHECKS, ResidualGrid
 from afterfit.view.sampling import choose_points, density
 
 HOSTILE = "<img src=x onerror=alert(1)>"
@@ -244,6 +244,33 @@ def test_values_that_a_refit_keeps_are_computed_once(wire, study):
     view = grid.panels["var:irrigation_mm"]
     np.testing.assert_array_equal(view.data.x, study.data.loc[study.rows, "irrigation_mm"])
     assert round(float((view.shade.astype(float) ** 2).sum())) == len(study.rows)
+
+
+def test_the_grid_asks_the_study_only_for_the_checks_it_shows(wire, study, monkeypatch):
+    asked = []
+    original = study.checks
+    monkeypatch.setattr(study, "checks", lambda **k: asked.append(k.get("only")) or original(**k))
+    grid = ResidualGrid(study, max_panels=50)
+    assert asked and all(tuple(a) == GRID_CHECKS for a in asked)
+    assert grid.scores["qq"].pvalue == pytest.approx(original().loc["Jarque-Bera", "pvalue"])
+
+
+def test_undo_and_redo_reuse_the_panels_of_a_state(wire, study, monkeypatch):
+    grid = ResidualGrid(study, budget=40, max_panels=50)
+    first = {k: grid.panels[k].data for k in grid.order}
+    study.add("I(tree_age ** 2)", reason="age curve")
+    grid.refresh()
+    calls = []
+    original = study.binned_means
+    monkeypatch.setattr(study, "binned_means", lambda *a, **k: calls.append(a) or original(*a, **k))
+    study.undo()
+    grid.refresh()
+    assert calls == []  # the earlier state's panels are the ones built before
+    assert all(grid.panels[k].data is first[k] for k in grid.order)
+    # ... and they are drawn again: the dots show the earlier state's residuals
+    view = grid.panels["fitted"]
+    np.testing.assert_allclose(view.to_data("y", view.dots.y),
+                               study.fit.resid.to_numpy()[view.drawn], atol=1e-9)
 
 
 def test_sample_keeps_extremes_and_is_seeded(study):
