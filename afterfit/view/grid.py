@@ -279,7 +279,7 @@ class _RowCache:
         self.values: dict = {}
         self.positions: dict = {}
         self.memo = _Memo()
-        self._owned: set = set()
+        self._owned: dict = {}  # id -> array (kept, so an id always means its array)
 
     def fits(self, study: Any) -> bool:
         """Whether ``study``'s data and fitted rows are the ones cached here."""
@@ -288,11 +288,11 @@ class _RowCache:
 
     def keep(self, key: str, value: Any, x: np.ndarray) -> Any:
         self.values[key] = value
-        self._owned.add(id(x))
+        self._owned[id(x)] = x
         return value
 
     def owns(self, a: np.ndarray) -> bool:
-        return id(a) in self._owned
+        return self._owned.get(id(a)) is a
 
     def blom(self, m: int) -> np.ndarray:
         """Normal quantiles at Blom's plotting positions (i - 3/8) / (m + 1/4), i = 1..m
