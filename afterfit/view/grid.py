@@ -64,11 +64,6 @@ _HIGHLIGHT_CAP = 250  # selected rows outside the drawn sample that are drawn on
 _COOK_LEVELS = (0.5, 1.0)  # contour levels of Cook's distance (common practice)
 _GUIDE_POINTS = 64
 _GOLDEN = (math.sqrt(5) - 1) / 2
-# A fixed stylesheet (no data in it): the browser skips style, layout and paint of panels out of
-# view (each holds hundreds of SVG elements) until they are scrolled to; the intrinsic size keeps
-# the page's height while they wait.
-_STYLE = ("<style>.afterfit-grid .afterfit-panel"
-          "{content-visibility: auto; contain-intrinsic-size: auto 320px;}</style>")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -1102,8 +1097,7 @@ class ResidualGrid(W.VBox):
         self.unhide_all.on_click(lambda _b: self.show_all())
         self.hidden_bar = W.HBox([self.hidden_pick, self.unhide, self.unhide_all],
                                  layout=W.Layout(display="none", align_items="center"))
-        self.children = [W.HTML(_STYLE, layout=W.Layout(display="none")), self.note,
-                         self.cells, W.HBox([self.more, self.hidden_bar])]
+        self.children = [self.note, self.cells, W.HBox([self.more, self.hidden_bar])]
         self.refresh()
 
     @property

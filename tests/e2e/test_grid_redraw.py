@@ -116,7 +116,7 @@ def test_a_refit_sends_data_to_the_figures_already_there(page, lab, request):
     wb, probe = _open(page, lab, "grid_redraw.ipynb")
     grid = wb.locator(".afterfit-grid").first
     try:
-        # the analyst looks at the grid (panels out of view cost the page less)
+        # the analyst looks at the grid while it is redrawn
         grid.locator(".afterfit-panel").first.scroll_into_view_if_needed()
         before = grid.evaluate(_PANELS)
         page.wait_for_timeout(1000)
