@@ -25,7 +25,7 @@ import ipywidgets as W
 import numpy as np
 import pandas as pd
 
-from afterfit.view.grid import PALETTE, ResidualGrid
+from afterfit.view.grid import GRID_CHECKS, PALETTE, ResidualGrid
 from afterfit.view.inspector import RowInspector, model_variables
 
 __all__ = ["Explorer"]
@@ -40,8 +40,7 @@ _LATER = "__later__"
 _FIRST = ("header", "model strip", "fit meter", "timeline", "export code")
 _GRID = ("residual grid", "row inspector")
 _PRIMARY = _FIRST + _GRID
-# the checks the residual grid ranks panels by; the rest (White, Harvey-Collier, ...) come later
-GRID_CHECKS = ("Jarque-Bera", "Breusch-Pagan (Koenker)", "Ljung-Box")
+
 _SMALL_N_PER_PARAMETER = 10  # rows per parameter below which a fit is called small (common practice)
 
 
@@ -309,6 +308,7 @@ class Explorer(W.VBox):
 
     def _warm_grid(self) -> None:
         s = self._study
+        # the checks the grid ranks panels by; the rest (White, Harvey-Collier, ...) come last
         s.influence, s.pattern_scores(), s.checks(only=GRID_CHECKS)
 
     def _warm_primary(self) -> None:
