@@ -49,6 +49,7 @@ class _Job:
     fn: Callable[[], Any]
     label: str
     key: Any
+    queued: float = 0.0  # time.monotonic() when run() took it
 
 
 def _kernel_dispatch() -> Callable[[Callable], Any] | None:
@@ -114,6 +115,9 @@ class Explorer(W.VBox):
         self._refreshed.set()
         self._tick_count = 0
         self.refresh_count = 0
+        # seconds from the start of the last action to each stage's milestones (diagnostics;
+        # the browser tests report them next to the delays measured in the page)
+        self.timings: dict = {}
         self.errors: list[str] = []
 
         self.header = W.HTML("")
@@ -209,7 +213,7 @@ class Explorer(W.VBox):
         """
         if not callable(fn):
             raise TypeError(f"run() needs a callable, got {type(fn).__name__}")
-        job = _Job(fn, str(label), label if key is None else key)
+        job = _Job(fn, str(label), label if key is None else key, time.monotonic())
         with self._cv:
             if self._closed:
                 raise RuntimeError("this Explorer was closed; make a new one with explore()")
@@ -256,10 +260,12 @@ class Explorer(W.VBox):
                                       name="afterfit-progress")
             ticker.start()
             error = None
+            self.timings = {"queued_to_start": time.monotonic() - job.queued}
             try:
                 job.fn()
             except Exception as exc:  # shown in the widget; the kernel keeps running
                 error = exc
+            self.timings["action"] = time.monotonic() - self._started
             with self._cv:
                 refresh_due = self._refresh_queued
                 self._refresh_queued = False
@@ -285,18 +291,21 @@ class Explorer(W.VBox):
 
     def _stage(self, job: _Job, what: str, warm: Callable[[], Any], parts: tuple) -> None:
         with self._cv:
-            self._running = _Job(job.fn, f"{job.label}: {what}", job.key)
+            self._running = _Job(job.fn, f"{job.label}: {what}", job.key, job.queued)
         self._post(self._show_status)
         try:
             warm()
         except Exception:  # the refresh below shows what went wrong, part by part
             pass
+        self.timings[f"{what}: computed"] = time.monotonic() - self._started
         self._refreshed.clear()
 
         def show() -> None:
             try:
+                self.timings[f"{what}: drawing starts"] = time.monotonic() - self._started
                 self.refresh(parts)
             finally:
+                self.timings[f"{what}: sent"] = time.monotonic() - self._started
                 self._refreshed.set()
 
         self._post(show)
