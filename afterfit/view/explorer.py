@@ -118,6 +118,7 @@ class Explorer(W.VBox):
         # seconds from the start of the last action to each stage's milestones (diagnostics;
         # the browser tests report them next to the delays measured in the page)
         self.timings: dict = {}
+        self._owed = False  # candidate terms and the audit log not yet redrawn for this state
         self.errors: list[str] = []
 
         self.header = W.HTML("")
@@ -271,19 +272,27 @@ class Explorer(W.VBox):
                 self._refresh_queued = False
             if error is not None:
                 self._post(lambda j=job, e=error: self._show_error(j, e))
-            if job.key == _LATER and error is None and not refresh_due and not self._closed:
-                self._stage(job, "find candidate terms", self._warm_tray, ("term tray",))
-                self._stage(job, "run the specification checks", self._warm_checks, ("export",))
+            if job.key == _LATER and error is None:
+                self._owed = True  # the first display left the tray and the audit log to us
             if refresh_due and not self._closed:
-                # the grid, meter and timeline first; candidate terms (the slow part on large
-                # tables) after them, so a refit shows as soon as its own numbers exist.  The
-                # Study's results are computed here, off the page's thread, and cached per state.
+                # the meter and strip first, then the grid: a refit shows as soon as its own
+                # numbers exist.  The Study's results are computed here, off the page's thread,
+                # and cached per state.
                 self._stage(job, "redraw", self._warm_first, _FIRST)
                 self._stage(job, "redraw the residual grid", self._warm_grid, _GRID)
-                self._stage(job, "update candidate terms", self._warm_tray, ("term tray",))
-                # the audit log reports every specification check; on large tables White's and
-                # Harvey-Collier's take seconds, so they run last
-                self._stage(job, "run the specification checks", self._warm_checks, ("export",))
+                self._owed = True
+            if self._owed and not self._closed:
+                with self._cv:
+                    # another action is waiting: candidates (seconds on large tables) and checks
+                    # of this state would be out of date at once; the next action owes them
+                    skip = bool(self._pending)
+                if not skip:
+                    self._stage(job, "update candidate terms", self._warm_tray, ("term tray",))
+                    # the audit log reports every specification check; on large tables White's
+                    # and Harvey-Collier's take seconds, so they run last
+                    self._stage(job, "run the specification checks", self._warm_checks,
+                                ("export",))
+                    self._owed = False
             with self._cv:
                 self._running = None
                 self._cv.notify_all()

@@ -359,3 +359,27 @@ def test_large_tables_show_first_and_fill_the_tray_and_audit_in_later(wire, stud
     assert [c["term"] for c in w.tray.candidates] == list(table["term"])
     assert _undated(w.export.audit) == _undated(study.audit())
     assert w.status == "" and w.message.value == ""
+
+
+def test_a_waiting_action_skips_the_slow_stages_of_the_state_it_replaces(wire, study):
+    # two quick drops: the candidates and checks of the state in between would be stale at once,
+    # so they are not computed; the last state gets everything
+    w = Explorer(study)
+    assert w.wait(60)
+    gate = threading.Event()
+    first_state = []
+
+    def first():
+        gate.wait(20)
+        study.add(SQUARE, reason="age curve")
+        first_state.append(study.state)
+
+    w.run(first, "first")
+    w.run(lambda: study.remove(SQUARE), "second")
+    gate.set()
+    assert w.wait(60)
+    assert first_state and first_state[0] not in study._cand_cache  # skipped, never computed
+    table = study.candidates()
+    assert [c["term"] for c in w.tray.candidates] == list(table["term"])
+    assert _undated(w.export.audit) == _undated(study.audit())
+    assert w.status == "" and w.message.value == ""
