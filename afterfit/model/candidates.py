@@ -1321,43 +1321,43 @@ def residual_profiles(resid, variables, *, bins: int = 10, weights=None, scores:
         b = values if isinstance(values, Bins) else bin_values(values, bins=bins, name=name)
         if b.codes.size != n:
             raise ValueError(f"variable {name!r} has {b.codes.size} values but resid has {n}")
-        k = b.n_bins
-        unweighted = None
+        plain = None  # unweighted sums, shared by the smoother when the scores are unweighted
         if scores:
-            kept = None if (all_good and b.complete) else (b.codes >= 0) & good
-            codes = b.codes if kept is None else b.codes[kept]
+            mask = None if (all_good and b.complete) else (b.codes >= 0) & good
             if w is None:
-                if kept is None:
-                    count = b.summary()[0]
-                else:
-                    count = np.bincount(codes, minlength=k).astype(float)
-                s1 = np.bincount(codes, weights=ec if kept is None else ec[kept], minlength=k)
-                s2 = np.bincount(codes, weights=ec2 if kept is None else ec2[kept], minlength=k)
-                unweighted = (kept, count, s1, s2)
-                wsum = count
+                plain = _bin_sums(b, mask, None, ec, ec2)
+                used_rows, wsum, s1, s2 = plain
             else:
-                wsum = np.bincount(codes, weights=w if kept is None else w[kept], minlength=k)
-                s1 = np.bincount(codes, weights=wec if kept is None else wec[kept], minlength=k)
-                s2 = np.bincount(codes, weights=wec2 if kept is None else wec2[kept],
-                                 minlength=k)
-            score, pvalue, used = _eta_from_sums(wsum, s1, s2, codes.size)
+                used_rows, wsum, s1, s2 = _bin_sums(b, mask, w, wec, wec2)
+            score, pvalue, used = _eta_from_sums(wsum, s1, s2, used_rows)
             rows.append({"score": score, "pvalue": pvalue, "bins_used": used, "kind": b.kind,
-                         "n_used": int(codes.size)})
+                         "n_used": used_rows})
         if smoothers:
-            if unweighted is None:  # weighted scores (or none): the smoother is unweighted
-                kept = None if (all_fin and b.complete) else (b.codes >= 0) & fin
-                codes = b.codes if kept is None else b.codes[kept]
-                count = b.summary()[0] if kept is None else np.bincount(
-                    codes, minlength=k).astype(float)
-                s1 = np.bincount(codes, weights=ec if kept is None else ec[kept], minlength=k)
-                s2 = np.bincount(codes, weights=ec2 if kept is None else ec2[kept], minlength=k)
-                unweighted = (kept, count, s1, s2)
-            smooth[name] = _smoother_from_sums(b, centre, *unweighted)
+            mask = None if (all_fin and b.complete) else (b.codes >= 0) & fin
+            if plain is None:  # weighted scores (or none): the smoother is unweighted
+                plain = _bin_sums(b, mask, None, ec, ec2)
+            smooth[name] = _smoother_from_sums(b, centre, mask, *plain[1:])
     table = None
     if scores:
         table = pd.DataFrame(rows, index=pd.Index([name for name, _ in items], name="variable"),
                              columns=["score", "pvalue", "bins_used", "kind", "n_used"])
     return table, smooth
+
+
+def _bin_sums(b, mask, weight, first, second):
+    """Rows used and per-bin totals of ``weight`` (a count when None), ``first`` and ``second``
+    over the rows in ``mask`` (None: every row)."""
+    k = b.n_bins
+    if mask is None:
+        codes, pick = b.codes, (lambda v: v)
+        total = b.summary()[0] if weight is None else None
+    else:
+        codes, pick = b.codes[mask], (lambda v: v[mask])
+        total = np.bincount(codes, minlength=k).astype(float) if weight is None else None
+    if total is None:
+        total = np.bincount(codes, weights=pick(weight), minlength=k)
+    return (int(codes.size), total, np.bincount(codes, weights=pick(first), minlength=k),
+            np.bincount(codes, weights=pick(second), minlength=k))
 
 
 def _eta_from_sums(wsum, s1, s2, rows):
