@@ -15,33 +15,20 @@ Prints a Markdown table for the README.
 from __future__ import annotations
 
 import argparse
-import os
-import sys
 import time
 import warnings
 
 
-def _set_threads(argv):
-    # BLAS reads these when numpy is first imported, so this runs before the imports below
-    for i, a in enumerate(argv):
-        if a == "--threads" and i + 1 < len(argv):
-            for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-                os.environ[var] = argv[i + 1]
+import numpy as np
+import statsmodels.api as sm
+import statsmodels.stats.diagnostic as smd
+from scipy import stats
+from statsmodels.stats.outliers_influence import variance_inflation_factor
+from statsmodels.stats.stattools import durbin_watson, jarque_bera
 
-
-if __name__ == "__main__":
-    _set_threads(sys.argv)
-
-import numpy as np  # noqa: E402
-import statsmodels.api as sm  # noqa: E402
-import statsmodels.stats.diagnostic as smd  # noqa: E402
-from scipy import stats  # noqa: E402
-from statsmodels.stats.outliers_influence import variance_inflation_factor  # noqa: E402
-from statsmodels.stats.stattools import durbin_watson, jarque_bera  # noqa: E402
-
-from afterfit.model import checks as _checks  # noqa: E402
-from afterfit.model.checks import run_checks  # noqa: E402
-from afterfit.model.ols import fit_ols  # noqa: E402
+from afterfit.model import checks as _checks
+from afterfit.model.checks import run_checks
+from afterfit.model.ols import fit_ols
 
 
 def make_data(n: int, p: int = 12, seed: int = 0):
@@ -100,7 +87,10 @@ def run(n: int, lb_n: int, *, afterfit_only: bool = False) -> None:
     assert quick.equals(r.loc[quick.index])  # a subset is the full table's rows, exactly
     lags = min(10, n // 5)
     parts = afterfit_parts(ls, lags)
-    threads = os.environ.get("OPENBLAS_NUM_THREADS", "default")
+    from threadpoolctl import threadpool_info
+
+    threads = ",".join(str(i["num_threads"]) for i in threadpool_info()
+                       if i["user_api"] == "blas") or "unknown"
     print(f"\nn = {n:,}, p = {k} (BLAS threads: {threads}): afterfit run_checks {t_checks:.2f} s, "
           f"fit_ols {t_fit:.2f} s; only={QUICK}: {t_quick:.3f} s")
     print("| afterfit part | seconds |\n|---|---:|")
@@ -165,12 +155,18 @@ def main() -> None:
     ap.add_argument("--n", type=int, default=None)
     ap.add_argument("--afterfit-only", action="store_true", help="time afterfit's side only")
     ap.add_argument("--threads", type=int, default=None,
-                    help="cap BLAS threads for both contenders (applied before numpy loads)")
+                    help="cap BLAS threads for both contenders (threadpoolctl)")
     ap.add_argument("--lb-n", type=int, default=100_000,
                     help="largest n at which statsmodels' O(n^2) Ljung-Box is timed")
     args = ap.parse_args()
     n = args.n or (100_000 if args.quick else 1_000_000)
-    run(n, args.lb_n, afterfit_only=args.afterfit_only)
+    if args.threads:
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(args.threads, user_api="blas"):
+            run(n, args.lb_n, afterfit_only=args.afterfit_only)
+    else:
+        run(n, args.lb_n, afterfit_only=args.afterfit_only)
 
 
 def test_bench_checks_quick():

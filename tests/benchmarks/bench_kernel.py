@@ -22,25 +22,12 @@ Cook's distances relative to their largest value.
 from __future__ import annotations
 
 import argparse
-import os
-import sys
 import time
 
 
-def _set_threads(argv):
-    # BLAS reads these when numpy is first imported, so this runs before the imports below
-    for i, a in enumerate(argv):
-        if a == "--threads" and i + 1 < len(argv):
-            for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-                os.environ[var] = argv[i + 1]
+import tracemalloc
 
-
-if __name__ == "__main__":
-    _set_threads(sys.argv)
-
-import tracemalloc  # noqa: E402
-
-import numpy as np  # noqa: E402
+import numpy as np
 
 
 def best_of(fn, repeats):
@@ -147,13 +134,19 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="n = 10^4 and 10^5, fewer repeats")
     parser.add_argument("--threads", type=int, default=None,
-                        help="cap BLAS threads for both contenders (applied before numpy loads)")
+                        help="cap BLAS threads for both contenders (threadpoolctl)")
     parser.add_argument("--no-memory", action="store_true", help="skip the tracemalloc runs")
     args = parser.parse_args(argv)
     sizes = [10**4, 10**5] if args.quick else [10**4, 10**5, 10**6]
     repeats = 2 if args.quick else 3
-    rows = run(sizes, repeats=repeats, memory=not args.no_memory)
-    threads = os.environ.get("OPENBLAS_NUM_THREADS", "default")
+    if args.threads:
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(args.threads, user_api="blas"):
+            rows = run(sizes, repeats=repeats, memory=not args.no_memory)
+    else:
+        rows = run(sizes, repeats=repeats, memory=not args.no_memory)
+    threads = args.threads or "default"
     print(f"\nfit + influence measures, afterfit vs statsmodels (best of {repeats}, same run; "
           f"BLAS threads: {threads})\n")
     print(table(rows))
